@@ -1,0 +1,1 @@
+"""The ``lineament`` command: thin click commands over the Python API."""
