@@ -33,6 +33,13 @@ from skimage.measure import find_contours
 MAD_TO_SIGMA = 1.482602218505602
 
 
+#: Fourth-order central difference (-1, 8, 0, -8, 1) / 12 for correlation: the response is
+#: smooth at the filter scale, so this keeps the gradient within a few per cent at sigma = 2 px
+#: where the 3-point difference is about 10 % low (Fornberg 1988, "Generation of finite
+#: difference formulas on arbitrarily spaced grids", Math. Comp. 51, 699-706).
+_DERIVATIVE_5 = np.array([1.0, -8.0, 0.0, 8.0, -1.0], dtype=np.float32) / np.float32(12.0)
+
+
 @dataclass(frozen=True)
 class CrossingPiece:
     """A traced piece of a zero crossing, in fractional pixel-centre indices.
@@ -82,7 +89,8 @@ def strength_map(response: np.ndarray, sigma_m: float,
     gx, gy : ndarray, float32
         Gradient components of ``R`` per metre along columns and rows.
     """
-    gy, gx = np.gradient(response)
+    gx = ndimage.correlate1d(response, _DERIVATIVE_5, axis=1, output=np.float32, mode="nearest")
+    gy = ndimage.correlate1d(response, _DERIVATIVE_5, axis=0, output=np.float32, mode="nearest")
     gx /= np.float32(pixel_size_m[0])
     gy /= np.float32(pixel_size_m[1])
     mag = np.hypot(gx, gy)
@@ -112,6 +120,43 @@ def robust_noise(gx: np.ndarray, gy: np.ndarray, usable: np.ndarray, *, max_samp
     comps = np.concatenate([gx.ravel()[idx], gy.ravel()[idx]]).astype(np.float64)
     med = np.median(comps)
     return float(MAD_TO_SIGMA * np.median(np.abs(comps - med)))
+
+
+def _keys_weights(t: np.ndarray) -> np.ndarray:
+    """Cubic convolution weights of the four taps at offsets -1, 0, 1, 2 (Keys 1981, a = -1/2)."""
+    t2, t3 = t * t, t * t * t
+    return np.stack([
+        -0.5 * t3 + t2 - 0.5 * t,
+        1.5 * t3 - 2.5 * t2 + 1.0,
+        -1.5 * t3 + 2.0 * t2 + 0.5 * t,
+        0.5 * t3 - 0.5 * t2,
+    ])
+
+
+def sample_cubic(image: np.ndarray, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
+    """Sample ``image`` at fractional indices by cubic convolution.
+
+    Keys' kernel reproduces quadratics, so the peak of the strength profile
+    across a crossing is not flattened the way bilinear interpolation
+    flattens it (about 9 % at sigma = 2 px).  Indices are clamped at the
+    border.
+
+    Keys, R. (1981). Cubic convolution interpolation for digital image
+    processing. IEEE TASSP 29(6), 1153-1160. doi:10.1109/TASSP.1981.1163711
+    """
+    h, w = image.shape
+    r0 = np.floor(rows).astype(np.intp)
+    c0 = np.floor(cols).astype(np.intp)
+    wr = _keys_weights(rows - r0)
+    wc = _keys_weights(cols - c0)
+    out = np.zeros(rows.shape, dtype=np.float64)
+    for i in range(4):
+        ri = np.clip(r0 + i - 1, 0, h - 1)
+        acc = np.zeros(rows.shape, dtype=np.float64)
+        for j in range(4):
+            acc += wc[j] * image[ri, np.clip(c0 + j - 1, 0, w - 1)]
+        out += wr[i] * acc
+    return out
 
 
 def _hysteresis_runs(keep: np.ndarray, seed: np.ndarray, closed: bool) -> list[tuple[int, int]]:
@@ -149,7 +194,7 @@ def trace_zero_crossings(response: np.ndarray, strength: np.ndarray, usable: np.
     ----------
     response : ndarray, shape (rows, cols), float32
     strength : ndarray, shape (rows, cols), float32
-        Strength per pixel; vertices get it by bilinear interpolation.
+        Strength per pixel; vertices get it by cubic convolution (:func:`sample_cubic`).
     usable : ndarray of bool, shape (rows, cols)
         Cells far enough from voids and the raster edge; a vertex is usable
         when the nearest cell is.
@@ -172,7 +217,7 @@ def trace_zero_crossings(response: np.ndarray, strength: np.ndarray, usable: np.
         if closed:
             contour = contour[:-1]
         rows, cols = contour[:, 0], contour[:, 1]
-        s = ndimage.map_coordinates(strength, [rows, cols], order=1, mode="nearest").astype(np.float32)
+        s = np.maximum(sample_cubic(strength, rows, cols), 0.0).astype(np.float32)
         ri = np.clip(np.rint(rows).astype(np.intp), 0, usable.shape[0] - 1)
         ci = np.clip(np.rint(cols).astype(np.intp), 0, usable.shape[1] - 1)
         ok = usable[ri, ci]

@@ -1,0 +1,126 @@
+"""Zero-crossing tracing, strength and hysteresis."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from conftest import step_image
+from lineament.crossings import (
+    _hysteresis_runs,
+    robust_noise,
+    sample_cubic,
+    strength_map,
+    trace_zero_crossings,
+)
+from lineament.scalespace import log_response
+
+
+def _trace_step(angle, offset, sigma=2.0, n=96, h=10.0):
+    # An ideal step must be band-limited before sampling or its position is aliased; a Gaussian
+    # blur of 0.5 px keeps it symmetric about the edge, so the LoG zero crossing stays on it.
+    z = step_image(n, n, angle_deg=angle, offset_px=offset, height_step=h, blur_px=0.5)
+    r = log_response(z, sigma, (1.0, 1.0))
+    s, _, _ = strength_map(r, sigma, (1.0, 1.0))
+    usable = np.zeros((n, n), bool)
+    m = int(4 * sigma) + 2
+    usable[m:-m, m:-m] = True
+    return list(trace_zero_crossings(r, s, usable, high=0.5 * h, low=0.2 * h))
+
+
+@pytest.mark.parametrize("angle", [0, 10, 22.5, 30, 45, 60, 77, 90, 112, 135, 150, 171])
+@pytest.mark.parametrize("offset", [0.0, 0.31, 0.77])
+def test_step_edge_found_within_005_px(angle, offset):
+    # Analytic: the LoG of a symmetric step is odd about the edge, so its zero crossing lies on
+    # the edge (Marr and Hildreth 1980).  Tolerance 0.05 px from the issue.
+    pieces = _trace_step(angle, offset)
+    assert len(pieces) == 1
+    p = pieces[0]
+    a = np.radians(angle)
+    c = (96 - 1) / 2.0
+    d = (p.cols - c) * np.cos(a) - (p.rows - c) * np.sin(a) - offset
+    assert np.abs(d).max() < 0.05
+    # the piece spans the usable window: no gaps along a straight edge
+    assert np.hypot(p.rows[-1] - p.rows[0], p.cols[-1] - p.cols[0]) > 60
+
+
+@pytest.mark.parametrize("sigma", [2.0, 4.0, 8.0])
+def test_strength_of_step_is_its_height(sigma):
+    # Analytic: for h * Phi(x / b) the scale-normalised LoG at sigma has slope
+    # h sigma^2 / (sqrt(2 pi) s^3) at the crossing, s^2 = sigma^2 + b^2; our strength multiplies
+    # by sqrt(2 pi) sigma, giving h (sigma / s)^3: the step height when b << sigma.
+    h = 12.0
+    pieces = _trace_step(0.0, 0.31, sigma=sigma, n=160, h=h)
+    expected = h * (sigma / np.hypot(sigma, 0.5)) ** 3
+    assert np.median(pieces[0].strength) == pytest.approx(expected, rel=0.04)
+
+
+def test_strength_scales_with_values_and_not_with_offset():
+    # Invariance: multiplying by c > 0 multiplies strength by c; adding a constant changes nothing
+    # (linearity of the filter; common practice).
+    z = step_image(64, 64, angle_deg=20, offset_px=0.2, blur_px=0.5)
+    r1 = log_response(z, 2.0, (1.0, 1.0))
+    r2 = log_response(3.0 * z, 2.0, (1.0, 1.0))
+    np.testing.assert_allclose(strength_map(r2, 2.0, (1, 1))[0], 3 * strength_map(r1, 2.0, (1, 1))[0],
+                               rtol=1e-5, atol=1e-5)
+
+
+def test_robust_noise_matches_standard_deviation_of_gaussian_noise():
+    # Reference: for Gaussian samples 1.4826 * MAD estimates the standard deviation
+    # (Rousseeuw and Croux 1993); compare with numpy's std on clean data.
+    rng = np.random.default_rng(3)
+    gx = rng.normal(0, 2.5, (400, 400)).astype(np.float32)
+    gy = rng.normal(0, 2.5, (400, 400)).astype(np.float32)
+    usable = np.ones(gx.shape, bool)
+    ref = np.std(np.concatenate([gx.ravel(), gy.ravel()]))
+    assert robust_noise(gx, gy, usable) == pytest.approx(ref, rel=0.01)
+    # and it ignores a few strong outliers (lineaments) that inflate the std
+    gx[::20, :] = 500.0
+    assert robust_noise(gx, gy, usable) == pytest.approx(2.5, rel=0.06)
+    assert robust_noise(gx, gy, np.zeros_like(usable)) == 0.0
+
+
+def test_cubic_sampling_reproduces_quadratics():
+    # Keys (1981): cubic convolution with a = -1/2 reproduces polynomials up to degree 2.
+    rows, cols = np.mgrid[0:20, 0:20].astype(np.float64)
+    img = 0.3 * rows**2 - 0.2 * rows * cols + 0.1 * cols**2 + 2 * rows - cols + 5
+    rng = np.random.default_rng(0)
+    r = rng.uniform(2, 16, 50)
+    c = rng.uniform(2, 16, 50)
+    expected = 0.3 * r**2 - 0.2 * r * c + 0.1 * c**2 + 2 * r - c + 5
+    np.testing.assert_allclose(sample_cubic(img, r, c), expected, rtol=1e-10)
+
+
+def test_hysteresis_keeps_only_seeded_runs():
+    keep = np.array([0, 1, 1, 1, 0, 1, 1, 0, 1, 1, 1, 1], bool)
+    seed = np.array([0, 0, 1, 0, 0, 0, 0, 0, 0, 0, 0, 1], bool)
+    assert _hysteresis_runs(keep, seed, closed=False) == [(1, 4), (8, 12)]
+    # on a closed path the last run continues into the first one
+    keep2 = np.array([1, 1, 0, 0, 1, 1], bool)
+    seed2 = np.array([0, 0, 0, 0, 0, 1], bool)
+    runs = _hysteresis_runs(keep2, seed2, closed=True)
+    assert runs == [(4, 8)]
+    assert _hysteresis_runs(np.ones(5, bool), np.zeros(5, bool), closed=True) == []
+    assert _hysteresis_runs(np.ones(5, bool), np.eye(1, 5, 2, dtype=bool)[0], closed=True) == [(0, 5)]
+
+
+def test_weak_step_is_dropped_and_low_threshold_continues_a_seeded_line():
+    # A step whose height drops from 10 to 4 along its length: with high = 8 and low = 3 the
+    # whole edge survives (seeded by the strong half); with low = 5 only the strong half does.
+    n = 120
+    z = step_image(n, n, angle_deg=0, offset_px=0.3, height_step=1.0, blur_px=0.5)
+    amp = np.where(np.arange(n) < n // 2, 10.0, 4.0)[:, None]
+    from scipy import ndimage
+    amp = ndimage.gaussian_filter1d(amp, 3.0, axis=0)
+    z = (z * amp).astype(np.float32)
+    r = log_response(z, 2.0, (1.0, 1.0))
+    s, _, _ = strength_map(r, 2.0, (1.0, 1.0))
+    usable = np.zeros((n, n), bool)
+    usable[10:-10, 10:-10] = True
+    long = list(trace_zero_crossings(r, s, usable, high=8.0, low=3.0))
+    short = list(trace_zero_crossings(r, s, usable, high=8.0, low=5.0))
+    none = list(trace_zero_crossings(r, s, usable, high=12.0, low=3.0))
+    span = lambda p: p.rows.max() - p.rows.min()  # noqa: E731
+    assert len(long) == 1 and span(long[0]) > 95
+    assert len(short) == 1 and 40 < span(short[0]) < 60
+    assert none == []
