@@ -122,6 +122,30 @@ def robust_noise(gx: np.ndarray, gy: np.ndarray, usable: np.ndarray, *, max_samp
     return float(MAD_TO_SIGMA * np.median(np.abs(comps - med)))
 
 
+def noise_gain(response_of, sigma_m: float, pixel_size_m: tuple[float, float], *, truncate: float) -> float:
+    """Standard deviation of one response-gradient component per unit of white input noise.
+
+    Found exactly for the discrete filters in use from their impulse response
+    (the variance of a linear filter's output for white input is the sum of
+    its squared taps).
+
+    Parameters
+    ----------
+    response_of : callable
+        ``response_of(image) -> response``, e.g. a partial of
+        :func:`~lineament.scalespace.log_response`.
+    sigma_m, pixel_size_m, truncate
+        As for the response.
+    """
+    rr = int(math.ceil(truncate * sigma_m / pixel_size_m[1])) + 3
+    rc = int(math.ceil(truncate * sigma_m / pixel_size_m[0])) + 3
+    impulse = np.zeros((2 * rr + 1, 2 * rc + 1), np.float32)
+    impulse[rr, rc] = 1.0
+    _, gx, gy = strength_map(response_of(impulse), sigma_m, pixel_size_m)
+    gx64, gy64 = gx.astype(np.float64), gy.astype(np.float64)
+    return float(math.sqrt(0.5 * (np.sum(gx64 * gx64) + np.sum(gy64 * gy64))))
+
+
 def _keys_weights(t: np.ndarray) -> np.ndarray:
     """Cubic convolution weights of the four taps at offsets -1, 0, 1, 2 (Keys 1981, a = -1/2)."""
     t2, t3 = t * t, t * t * t
@@ -187,7 +211,9 @@ def _hysteresis_runs(keep: np.ndarray, seed: np.ndarray, closed: bool) -> list[t
 
 
 def trace_zero_crossings(response: np.ndarray, strength: np.ndarray, usable: np.ndarray,
-                         *, high: float, low: float, min_vertices: int = 2) -> Iterator[CrossingPiece]:
+                         *, high: float, low: float, sustained: float | None = None,
+                         sustained_length_px: float = np.inf,
+                         min_vertices: int = 2) -> Iterator[CrossingPiece]:
     """Trace the zero crossings of ``response`` and keep strong pieces.
 
     Parameters
@@ -200,6 +226,15 @@ def trace_zero_crossings(response: np.ndarray, strength: np.ndarray, usable: np.
         when the nearest cell is.
     high, low : float
         Hysteresis thresholds on strength (``low <= high``).
+    sustained : float, optional
+        A run of vertices at or above ``low`` that has no seed is still kept
+        when it is at least ``sustained_length_px`` long (pixels along the
+        path) and its mean strength is at least ``sustained``: a long,
+        consistently strong crossing is as unlikely in a noisy background as
+        a single very strong vertex, because background strength decorrelates
+        within about one sigma along the path.
+    sustained_length_px : float
+        Path length a seedless run needs, in pixels.
     min_vertices : int
         Pieces with fewer vertices are not yielded.
 
@@ -224,8 +259,13 @@ def trace_zero_crossings(response: np.ndarray, strength: np.ndarray, usable: np.
         keep = ok & (s >= low)
         seed = ok & (s >= high)
         n = rows.size
-        for a, b in _hysteresis_runs(keep, seed, closed):
+        for a, b in _hysteresis_runs(keep, keep if sustained is not None else seed, closed):
             idx = np.arange(a, b + (1 if closed and b - a == n else 0)) % n
             if idx.size < min_vertices:
                 continue
+            if sustained is not None and not seed[idx].any():
+                pr, pc = rows[idx], cols[idx]
+                path = float(np.hypot(np.diff(pr), np.diff(pc)).sum())
+                if path < sustained_length_px or float(np.mean(s[idx])) < sustained:
+                    continue
             yield CrossingPiece(rows[idx], cols[idx], s[idx])

@@ -6,12 +6,12 @@ Conventions
 -----------
 * Arrays are indexed ``[row, col]``; row 0 is the first row stored in the
   file (the top row for a usual north-up raster).
-* The affine transform maps *pixel corners*: ``transform * (col, row)`` is
+* The affine transform maps *pixel corners*: ``transform @ (col, row)`` is
   the upper-left corner of pixel ``(row, col)`` (OGC GeoTIFF, PixelIsArea,
   as rasterio reports it).
 * Contour tracers and filters work on *pixel centres*: the value ``a[r, c]``
   is taken to sit at fractional index ``(r, c)``.  The centre of pixel
-  ``(r, c)`` is at ``transform * (c + 0.5, r + 0.5)``.
+  ``(r, c)`` is at ``transform @ (c + 0.5, r + 0.5)``.
 
 :meth:`GeoRef.pixel_to_map` applies both the axis swap and the half-pixel
 shift; nothing else in the package should.
@@ -113,11 +113,6 @@ class GeoRef:
                 pass
         return Geod(ellps="WGS84")
 
-    def center_latitude(self) -> float:
-        """Latitude (degrees) of the grid centre; needs a geographic CRS."""
-        x, y = self.transform * (self.width / 2.0, self.height / 2.0)
-        return float(y)
-
     def pixel_size_m(self, rows: slice | None = None) -> tuple[float, float]:
         """Ground size of a pixel in metres, ``(along columns, along rows)``.
 
@@ -134,9 +129,9 @@ class GeoRef:
         r0 = 0 if rows is None else (rows.start or 0)
         r1 = self.height if rows is None else (rows.stop if rows.stop is not None else self.height)
         t = self.transform
-        lon, lat = t * (self.width / 2.0, (r0 + r1) / 2.0)
-        lon1, lat1 = t * (self.width / 2.0 + 1.0, (r0 + r1) / 2.0)
-        lon2, lat2 = t * (self.width / 2.0, (r0 + r1) / 2.0 + 1.0)
+        lon, lat = t @ (self.width / 2.0, (r0 + r1) / 2.0)
+        lon1, lat1 = t @ (self.width / 2.0 + 1.0, (r0 + r1) / 2.0)
+        lon2, lat2 = t @ (self.width / 2.0, (r0 + r1) / 2.0 + 1.0)
         g = self.geod
         _, _, dx = g.inv(lon, lat, lon1, lat1)
         _, _, dy = g.inv(lon, lat, lon2, lat2)
@@ -175,7 +170,7 @@ class GeoRef:
 
     def window(self, row_off: int, col_off: int, height: int, width: int) -> "GeoRef":
         """Georeferencing of a sub-grid starting at ``(row_off, col_off)``."""
-        t = self.transform * Affine.translation(col_off, row_off)
+        t = self.transform @ Affine.translation(col_off, row_off)
         return GeoRef(t, self.crs, int(height), int(width))
 
     def check_usable(self, source: str, *, allow_rotation: bool = False) -> None:

@@ -16,6 +16,7 @@ the raster with :mod:`lineament.raster_io`.
 
 from __future__ import annotations
 
+import functools
 import math
 import os
 import time
@@ -25,7 +26,7 @@ import numpy as np
 from scipy import ndimage
 
 from ._version import __version__
-from .crossings import robust_noise, strength_map, trace_zero_crossings
+from .crossings import noise_gain, robust_noise, step_strength_factor, strength_map, trace_zero_crossings
 from .errors import InputError
 from .georef import GeoRef
 from .raster_io import RasterData, read_raster
@@ -174,9 +175,12 @@ def extract_array(values: np.ndarray, georef: GeoRef, settings: ExtractionSettin
     if not np.isfinite(arr).all():
         raise InputError(f"{source}: values overflow float32 after centring and the z factor")
     filled = fill_voids(arr, ok, sigmas[0] / min(pixel_m))
+    # float32 rounding noise of the centred values, a few units in the last place
+    rounding_std = 4.0 * float(np.finfo(np.float32).eps) * float(np.abs(filled).max())
 
     lines: list[Lineament] = []
     reports: list[ScaleReport] = []
+    response_scale = 2.0 / (DOG_RATIO - 1.0 / DOG_RATIO) if settings.operator == "dog" else 1.0
     for scale, sigma_m in zip(settings.scales, sigmas):
         sigma_rc = (sigma_m / pixel_m[1], sigma_m / pixel_m[0])
         if settings.operator == "log":
@@ -185,12 +189,25 @@ def extract_array(values: np.ndarray, georef: GeoRef, settings: ExtractionSettin
             resp = dog_response(filled, sigma_m, pixel_m, ratio=DOG_RATIO, truncate=settings.truncate)
         strength, gx, gy = strength_map(resp, sigma_m, pixel_m)
         usable = _usable_cells(ok, sigma_rc, settings.void_margin_sigmas)
-        noise = robust_noise(gx, gy, usable) * math.sqrt(2 * math.pi) * sigma_m
+        # Noise level: robust spread of the response gradient, floored by what float32
+        # rounding of the input alone would produce (flat areas, synthetic data).
+        response_of = functools.partial(log_response if settings.operator == "log" else dog_response,
+                                        sigma_m=sigma_m, pixel_size_m=pixel_m, truncate=settings.truncate)
+        floor_in = rounding_std * noise_gain(response_of, sigma_m, pixel_m, truncate=settings.truncate)
+        # rounding of the response itself (the DoG subtracts two nearly equal blurred images),
+        # through the 5-point derivative whose white-noise gain is sqrt(130) / 12 per pixel
+        floor_out = rounding_std * response_scale * math.sqrt(130.0) / 12.0 / min(pixel_m)
+        floor = max(floor_in, floor_out)
+        noise = max(robust_noise(gx, gy, usable), floor) * step_strength_factor(sigma_m)
         high = settings.high_threshold if settings.high_threshold is not None else settings.high_noise_multiple * noise
         low = settings.low_threshold if settings.low_threshold is not None else settings.low_noise_multiple * noise
         low = min(low, high)
-        pieces = trace_zero_crossings(resp, strength, usable, high=high, low=low)
         min_len = settings.min_length_m if settings.min_length_m is not None else settings.min_length_sigmas * sigma_m
+        sustained = None
+        if settings.high_threshold is None:
+            sustained = min(high, max(low, settings.sustained_noise_multiple * noise))
+        pieces = trace_zero_crossings(resp, strength, usable, high=high, low=low, sustained=sustained,
+                                      sustained_length_px=settings.min_length_sigmas * min(sigma_rc))
         tol = settings.simplify_tolerance_m
         if tol is None:
             tol = 0.5 * min(pixel_m)

@@ -114,6 +114,10 @@ class ExtractionSettings:
         Hysteresis thresholds as multiples of the robust noise level of the
         response gradient at each scale (used when the absolute thresholds
         are not given).
+    sustained_noise_multiple : float
+        A line with no vertex above the high threshold is still kept when it
+        is at least ``min_length_sigmas`` sigmas long and its mean strength
+        is at least this multiple of the noise level.
     high_threshold, low_threshold : float or None
         Absolute hysteresis thresholds on strength (z units, see README).
     min_length_m : float or None
@@ -143,6 +147,7 @@ class ExtractionSettings:
     operator: str = "log"
     high_noise_multiple: float = 4.0
     low_noise_multiple: float = 2.0
+    sustained_noise_multiple: float = 3.0
     high_threshold: float | None = None
     low_threshold: float | None = None
     min_length_m: float | None = None
@@ -160,7 +165,8 @@ class ExtractionSettings:
         object.__setattr__(self, "scales", parse_scales(self.scales))
         if self.operator not in OPERATORS:
             raise SettingsError(f"operator must be one of {', '.join(OPERATORS)}, got {self.operator!r}")
-        for name in ("high_noise_multiple", "low_noise_multiple", "min_length_sigmas", "z_factor",
+        for name in ("high_noise_multiple", "low_noise_multiple", "sustained_noise_multiple",
+                     "min_length_sigmas", "z_factor",
                      "truncate"):
             v = getattr(self, name)
             if not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):

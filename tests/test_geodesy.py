@@ -1,0 +1,54 @@
+"""Lengths and azimuths against pyproj.Geod."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from affine import Affine
+from pyproj import CRS, Geod, Transformer
+
+from conftest import utm_georef
+from lineament.geodesy import fold_axial, line_measures
+from lineament.georef import GeoRef
+
+
+def test_fold_axial():
+    np.testing.assert_allclose(fold_axial(np.array([-10.0, 0.0, 180.0, 190.0, 359.9])), [170, 0, 0, 10, 179.9])
+
+
+def test_projected_lines_match_geod_inv():
+    # Reference: pyproj.Geod.inv on the endpoints transformed to WGS84 (Karney 2013).
+    g = utm_georef(100, 100)
+    xs = [np.array([500000.0, 503000.0]), np.array([520000.0, 521000.0, 522000.0])]
+    ys = [np.array([5200000.0, 5204000.0]), np.array([5150000.0, 5150000.0, 5150000.0])]
+    m = line_measures(xs, ys, g)
+    tr = Transformer.from_crs(32633, 4326, always_xy=True)
+    geod = Geod(ellps="WGS84")
+    for i, (x, y) in enumerate(zip(xs, ys)):
+        lon, lat = tr.transform(x, y)
+        az, _, _ = geod.inv(lon[0], lat[0], lon[-1], lat[-1])
+        length = geod.line_length(lon, lat)
+        assert m["length_m"][i] == pytest.approx(length, rel=1e-3)
+        assert m["azimuth_deg"][i] == pytest.approx(az % 180.0, abs=0.1)
+    # grid azimuth of the first line: atan2(3000, 4000) (analytic)
+    assert m["azimuth_grid_deg"][0] == pytest.approx(np.degrees(np.arctan2(3, 4)), abs=1e-9)
+    assert m["azimuth_grid_deg"][1] == pytest.approx(90.0, abs=1e-9)
+
+
+def test_geographic_lines_are_geodesic():
+    g = GeoRef(Affine(1 / 3600, 0, 10, 0, -1 / 3600, 61), CRS.from_epsg(4326), 100, 100)
+    lon = np.array([10.0, 10.2, 10.4])
+    lat = np.array([60.0, 60.1, 60.15])
+    m = line_measures([lon], [lat], g)
+    geod = Geod(ellps="WGS84")
+    assert m["length_m"][0] == pytest.approx(geod.line_length(lon, lat), rel=1e-9)
+    az, _, _ = geod.inv(lon[0], lat[0], lon[-1], lat[-1])
+    assert m["azimuth_deg"][0] == pytest.approx(az % 180, abs=1e-6)
+    assert np.isnan(m["azimuth_grid_deg"][0])
+
+
+def test_without_crs_lengths_are_planar():
+    g = GeoRef.pixel_grid(10, 10)
+    m = line_measures([np.array([0.0, 3.0, 3.0])], [np.array([0.0, 4.0, 0.0])], g)
+    assert m["length_m"][0] == pytest.approx(9.0)
+    assert m["azimuth_deg"][0] == pytest.approx(90.0)
