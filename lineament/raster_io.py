@@ -9,9 +9,9 @@ from dataclasses import dataclass
 import numpy as np
 import rasterio
 from rasterio.enums import ColorInterp
-from rasterio.errors import NotGeoreferencedWarning, RasterioError
+from rasterio.errors import CRSError, NotGeoreferencedWarning, RasterioError
 
-from .errors import InputError, RasterReadError
+from .errors import InputError, RasterReadError, SettingsError
 from .georef import GeoRef
 from .settings import ExtractionSettings
 
@@ -43,14 +43,53 @@ class RasterData:
     band_description: str
 
 
+def _data_bands(ds) -> list[int]:
+    """1-based numbers of the bands that hold data (alpha bands excluded)."""
+    interp = list(ds.colorinterp)
+    return [i for i, ci in enumerate(interp, start=1) if ci != ColorInterp.alpha]
+
+
 def _rgb_bands(ds) -> tuple[int, int, int] | None:
+    """Red, green and blue band numbers, or None when the raster has no such bands.
+
+    Bands tagged red, green and blue are used in that order whatever their
+    position.  Exactly three untagged data bands are taken as red, green,
+    blue (common practice); with more bands and no tags the choice is left
+    to ``--band``.
+    """
     interp = list(ds.colorinterp)
     want = (ColorInterp.red, ColorInterp.green, ColorInterp.blue)
     if all(w in interp for w in want):
         return tuple(interp.index(w) + 1 for w in want)  # type: ignore[return-value]
-    if ds.count >= 3:
-        return (1, 2, 3)
+    data = _data_bands(ds)
+    if len(data) == 3:
+        return tuple(data)  # type: ignore[return-value]
     return None
+
+
+def _gdal_message(exc: BaseException, name: str) -> str:
+    """The most informative one-line message in a rasterio/GDAL exception chain.
+
+    rasterio wraps the GDAL error that caused a failure in a generic one
+    ("Read failed. See previous exception for details."); the GDAL text is
+    in the chain of causes.  The file name GDAL prefixes is removed, since
+    the caller's message names the file already.
+    """
+    messages = []
+    seen = set()
+    cur: BaseException | None = exc
+    while cur is not None and id(cur) not in seen:
+        seen.add(id(cur))
+        text = " ".join(str(cur).split())
+        if text and "see previous exception" not in text.lower():
+            messages.append(text)
+        cur = cur.__cause__ or cur.__context__
+    msg = messages[0] if messages else type(exc).__name__
+    for prefix in (f"'{name}' ", f"{name}: ", f"{name}, ", f"{name} "):
+        if msg.startswith(prefix):
+            msg = msg[len(prefix):]
+            break
+    return msg
 
 
 def resolve_georef(ds, name: str, settings: ExtractionSettings) -> GeoRef:
@@ -70,8 +109,9 @@ def resolve_georef(ds, name: str, settings: ExtractionSettings) -> GeoRef:
         if settings.assume_crs:
             try:
                 crs = rasterio.crs.CRS.from_user_input(settings.assume_crs)
-            except Exception as exc:
-                raise InputError(f"{name}: cannot use --assume-crs {settings.assume_crs!r}: {exc}") from None
+            except (CRSError, ValueError, TypeError) as exc:
+                first = (str(exc).splitlines() or [type(exc).__name__])[0]
+                raise SettingsError(f"--assume-crs {settings.assume_crs!r} is not a CRS ({first})") from None
         elif settings.pixel_coordinates:
             return GeoRef(transform, None, ds.height, ds.width)
         else:
@@ -85,10 +125,13 @@ def resolve_georef(ds, name: str, settings: ExtractionSettings) -> GeoRef:
 def read_raster(path: str | os.PathLike, settings: ExtractionSettings | None = None) -> RasterData:
     """Read a raster for extraction.
 
-    A single-band raster is used as is; a multi-band image is reduced to
-    luminance (ITU-R BT.709 weights on the red, green and blue bands) unless
-    ``settings.band`` names one band.  Values become float32; nodata, masked,
-    NaN and infinite cells become invalid.
+    A single-band raster (alpha bands aside) is used as is; a multi-band
+    image is reduced to luminance (ITU-R BT.709 weights on the red, green
+    and blue bands) unless ``settings.band`` names one band.  Values become
+    float32 (float64 for 32- and 64-bit integers and float64, so that wide
+    ranges keep their precision until the pipeline removes the median);
+    nodata, masked (mask or alpha band), NaN and infinite cells become
+    invalid.
 
     Parameters
     ----------
@@ -106,45 +149,64 @@ def read_raster(path: str | os.PathLike, settings: ExtractionSettings | None = N
         The file is missing or not a readable raster.
     InputError
         The raster cannot be used (georeferencing, band, no valid data).
+    SettingsError
+        ``settings.assume_crs`` is not a CRS.
     """
     settings = settings or ExtractionSettings()
     name = os.fspath(path)
     if not os.path.exists(name) and "://" not in name and not name.startswith("/vsi"):
         raise RasterReadError(f"{name}: no such file")
     if os.path.isdir(name):
-        raise RasterReadError(f"{name}: is a directory, not a raster")
+        raise RasterReadError(f"{name}: is a folder, not a raster")
+    if os.path.isfile(name) and os.path.getsize(name) == 0:
+        raise RasterReadError(f"{name}: file is empty, not a raster")
     try:
+        # The "no geotransform" warning is replaced by our own error or by --pixel-coordinates.
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", NotGeoreferencedWarning)
-            ds = rasterio.open(name)
-        with ds:
-            georef = resolve_georef(ds, name, settings)
-            if settings.band is not None:
-                if settings.band > ds.count:
-                    raise InputError(f"{name}: band {settings.band} asked for, but the raster has "
-                                     f"{ds.count} band{'s' if ds.count != 1 else ''}")
-                bands = (settings.band,)
-                description = f"band {settings.band}"
-            elif ds.count == 1:
-                bands = (1,)
-                description = "band 1"
-            else:
-                rgb = _rgb_bands(ds)
-                if rgb is None:
-                    raise InputError(f"{name}: {ds.count} bands and no red/green/blue; choose one with --band N")
-                bands = rgb
-                description = "luminance of bands " + ",".join(map(str, rgb))
-            data = ds.read(list(bands), masked=True)
-    except (InputError, RasterReadError):
+            try:
+                ds = rasterio.open(name)
+            except RasterioError as exc:
+                raise RasterReadError(f"{name}: not a raster GDAL can open "
+                                      f"({_gdal_message(exc, name)})") from None
+            with ds:
+                georef = resolve_georef(ds, name, settings)
+                data_bands = _data_bands(ds)
+                if settings.band is not None:
+                    if settings.band > ds.count:
+                        raise InputError(f"{name}: band {settings.band} asked for, but the raster has "
+                                         f"{ds.count} band{'s' if ds.count != 1 else ''}")
+                    bands: tuple[int, ...] = (settings.band,)
+                    description = f"band {settings.band}"
+                elif len(data_bands) == 1:
+                    bands = (data_bands[0],)
+                    description = f"band {data_bands[0]}"
+                else:
+                    rgb = _rgb_bands(ds)
+                    if rgb is None:
+                        raise InputError(f"{name}: {ds.count} bands and none tagged red/green/blue; "
+                                         "choose one with --band N")
+                    bands = rgb
+                    description = "luminance of bands " + ",".join(map(str, rgb))
+                data = ds.read(list(bands), masked=True)
+    except (InputError, RasterReadError, SettingsError):
         raise
-    except RasterioError as exc:
-        msg = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        raise RasterReadError(f"{name}: cannot read raster ({msg})") from None
+    except (RasterioError, CRSError, OSError) as exc:
+        raise RasterReadError(f"{name}: cannot read raster, the file may be damaged or truncated "
+                              f"({_gdal_message(exc, name)})") from None
     except MemoryError:
         raise RasterReadError(f"{name}: raster too large to read into memory") from None
+    except Exception as exc:
+        # GDAL errors surface as rasterio._err.CPLE_* classes that derive from Exception only
+        if type(exc).__module__.startswith("rasterio"):
+            raise RasterReadError(f"{name}: cannot read raster ({_gdal_message(exc, name)})") from None
+        raise
 
     mask = np.ma.getmaskarray(data).any(axis=0)
     raw = np.ma.getdata(data)
+    if raw.dtype.kind not in "iuf":
+        raise InputError(f"{name}: values of type {raw.dtype} are not real numbers; "
+                         "convert the band to a real type first")
     # small integers and float32 fit float32 exactly; wider types stay float64 until centred
     wide = raw.dtype.itemsize > 2 and raw.dtype != np.float32
     arr = raw.astype(np.float64 if wide else np.float32, copy=False)

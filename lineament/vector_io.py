@@ -19,8 +19,10 @@ from pathlib import Path
 from typing import Iterable
 
 import fiona
+import fiona.errors
 import numpy as np
 from pyproj import CRS, Transformer
+from pyproj.exceptions import CRSError
 
 from .errors import OutputError
 from .vectorize import ATTRIBUTE_TYPES, Lineament
@@ -34,8 +36,10 @@ DRIVERS = {
     ".json": "GeoJSON",
 }
 
-#: Shapefile field names are limited to 10 characters (dBASE); these are used there instead.
-SHAPEFILE_FIELD_NAMES = {"strength_max": "strengthmx", "azimuth_grid_deg": "azim_grid"}
+#: Shapefile field names are limited to 10 characters (dBASE); these are used there instead
+#: (every other attribute name is short enough).  Units stay in the names.
+SHAPEFILE_FIELD_NAMES = {"strength_max": "strengthmx", "azimuth_deg": "azim_deg",
+                         "azimuth_grid_deg": "azgrid_deg"}
 
 _SHAPEFILE_PARTS = (".shp", ".shx", ".dbf", ".prj", ".cpg")
 
@@ -78,16 +82,20 @@ def check_output(path: str | os.PathLike, *, overwrite: bool = False) -> str:
         output when ``overwrite`` is False.
     """
     p = Path(path)
+    if p.is_dir():
+        raise OutputError(f"{path}: is a folder; give a file name such as lines.gpkg")
     driver = driver_for(p)
-    folder = p.parent if str(p.parent) else Path(".")
+    folder = p.parent
     if not folder.exists():
+        # a regular file somewhere up the path makes the folder impossible, not just missing
+        blocker = next((q for q in folder.parents if q.exists() and not q.is_dir()), None)
+        if blocker is not None:
+            raise OutputError(f"{path}: {blocker} is a file, not a folder")
         raise OutputError(f"{path}: folder {folder} does not exist")
     if not folder.is_dir():
-        raise OutputError(f"{path}: {folder} is not a folder")
+        raise OutputError(f"{path}: {folder} is a file, not a folder")
     if not os.access(folder, os.W_OK | os.X_OK):
         raise OutputError(f"{path}: folder {folder} is not writable")
-    if p.is_dir():
-        raise OutputError(f"{path}: is a folder")
     if not overwrite:
         existing = [q for q in _outputs_of(p) if q.exists()]
         if driver != "GPKG" and sidecar_path(p).exists():
@@ -123,16 +131,37 @@ def write_lines(result, path: str | os.PathLike, *, overwrite: bool = False,
     -------
     pathlib.Path
         The written file.
+
+    Raises
+    ------
+    OutputError
+        The output cannot be written (see :func:`check_output`), the lines
+        have no CRS but GeoJSON or reprojection was asked for, or GDAL or
+        the file system fails while writing.  Nothing is left behind: the
+        destination is either the complete new layer or untouched.
     """
     results = list(result) if isinstance(result, (list, tuple)) else [result]
+    if not results:
+        raise OutputError(f"{path}: nothing to write (no extraction results given)")
     driver = check_output(path, overwrite=overwrite)
     out_path = Path(path)
-    src_crs = results[0].georef.crs if results else None
-    dst_crs = CRS.from_user_input(crs) if crs is not None else src_crs
+    crs_list = [r.georef.crs for r in results]
+    if any(c is None for c in crs_list) and any(c is not None for c in crs_list):
+        raise OutputError(f"{path}: some results have a CRS and some do not; they cannot share one layer")
+    src_crs = crs_list[0]
+    if crs is not None:
+        try:
+            dst_crs = CRS.from_user_input(crs)
+        except CRSError as exc:
+            first = (str(exc).splitlines() or [type(exc).__name__])[0]
+            raise OutputError(f"{path}: output CRS {crs!r} is not a CRS ({first})") from None
+    else:
+        dst_crs = src_crs
+    if src_crs is None and (driver == "GeoJSON" or crs is not None):
+        raise OutputError(f"{path}: the lines have no CRS (pixel coordinates), so they cannot be "
+                          f"{'written as GeoJSON, which is always WGS84' if driver == 'GeoJSON' else 'reprojected'}; "
+                          "write a GeoPackage instead")
     if driver == "GeoJSON":
-        if src_crs is None:
-            raise OutputError(f"{path}: GeoJSON needs WGS84 coordinates but the lines have no CRS; "
-                              "write a GeoPackage instead")
         dst_crs = CRS.from_epsg(4326)
     lines: list[Lineament] = [line for r in results for line in r.lines]
     metadata = results[0].metadata() if len(results) == 1 else {
@@ -162,8 +191,18 @@ def _records(lines: list[Lineament], src_crs, dst_crs, driver: str, line_crs: li
 
 def _atomic_write(out_path: Path, driver: str, schema: dict, crs, records: Iterable[dict],
                   metadata: dict) -> None:
-    folder = out_path.parent if str(out_path.parent) else Path(".")
-    tmpdir = Path(tempfile.mkdtemp(prefix=".lineament-", dir=folder))
+    """Write into a temporary folder beside ``out_path``, then rename into place.
+
+    Errors of GDAL or of the file system become :class:`OutputError`; any
+    other exception (for example from ``records``) propagates unchanged.  In
+    every case the temporary folder is removed and ``out_path`` is either
+    the complete new layer or untouched.
+    """
+    folder = out_path.parent
+    try:
+        tmpdir = Path(tempfile.mkdtemp(prefix=".lineament-", dir=folder))
+    except OSError as exc:
+        raise OutputError(f"{out_path}: cannot write in folder {folder} ({exc.strerror or exc})") from None
     try:
         tmp = tmpdir / out_path.name
         options = {}
@@ -183,6 +222,15 @@ def _atomic_write(out_path: Path, driver: str, schema: dict, crs, records: Itera
         parts = sorted(tmpdir.iterdir(), key=lambda q: q.name == out_path.name)
         for part in parts:
             os.replace(part, folder / part.name)
+    except (fiona.errors.FionaError, OSError) as exc:
+        first = (str(exc).splitlines() or [type(exc).__name__])[0]
+        raise OutputError(f"{out_path}: cannot write {driver} layer ({first})") from None
+    except Exception as exc:
+        # GDAL errors can surface as fiona._err.CPLE_* classes that derive from Exception only
+        if type(exc).__module__.startswith("fiona"):
+            first = (str(exc).splitlines() or [type(exc).__name__])[0]
+            raise OutputError(f"{out_path}: cannot write {driver} layer ({first})") from None
+        raise
     finally:
         shutil.rmtree(tmpdir, ignore_errors=True)
 

@@ -2,10 +2,13 @@
 
 from __future__ import annotations
 
+import contextlib
 import functools
+import logging
 import sys
 import tomllib
 import traceback
+import warnings
 from pathlib import Path
 
 import click
@@ -15,21 +18,81 @@ from ..errors import LineamentError
 CAUTION = ("Caution: lineaments are screening aids, not survey-grade boundaries; for hazard decisions "
            "(faults, slopes, foundations) defer to local codes and licensed professionals.")
 
+#: Loggers of the libraries that relay GDAL messages; their records are shown as one-line warnings.
+_LIBRARY_LOGGERS = ("rasterio", "fiona")
+
+
+def one_line(text: str) -> str:
+    """``text`` with every run of whitespace, line breaks included, made a single space."""
+    return " ".join(str(text).split())
+
 
 def fail(message: str, code: int) -> None:
     """Print one error line on stderr and exit with ``code``."""
-    click.echo(f"lineament: error: {message}", err=True)
+    click.echo(f"lineament: error: {one_line(message)}", err=True)
     sys.exit(code)
 
 
+def warn(message: str) -> None:
+    """Print one warning line on stderr."""
+    click.echo(f"lineament: warning: {one_line(message)}", err=True)
+
+
+class _OneLineHandler(logging.Handler):
+    """Shows library log records of level WARNING and above as one ``lineament: warning:`` line."""
+
+    def emit(self, record: logging.LogRecord) -> None:
+        try:
+            warn(record.getMessage())
+        except Exception:  # pragma: no cover - never let a message break a run
+            pass
+
+
+@contextlib.contextmanager
+def _quiet_libraries(debug: bool):
+    """Route Python warnings and GDAL log records to one-line messages for the duration of a command.
+
+    Without this, a warning prints two lines (file:line, source) and a GDAL
+    message relayed through :mod:`logging` reaches stderr through Python's
+    last-resort handler.  With ``debug`` the usual Python formats are kept.
+    """
+    if debug:
+        yield
+        return
+    handler = _OneLineHandler(level=logging.WARNING)
+    saved = []
+    for name in _LIBRARY_LOGGERS:
+        lg = logging.getLogger(name)
+        saved.append((lg, lg.propagate))
+        lg.addHandler(handler)
+        lg.propagate = False
+    old_showwarning = warnings.showwarning
+
+    def showwarning(message, category, filename, lineno, file=None, line=None):
+        warn(f"{message} ({category.__name__})")
+
+    warnings.showwarning = showwarning
+    try:
+        yield
+    finally:
+        warnings.showwarning = old_showwarning
+        for lg, propagate in saved:
+            lg.removeHandler(handler)
+            lg.propagate = propagate
+
+
 def handle_errors(func):
-    """Turn known errors into one line on stderr and an exit code; ``--debug`` shows the traceback."""
+    """Turn known errors into one line on stderr and an exit code; ``--debug`` shows the traceback.
+
+    Exit codes are those of :data:`lineament.errors.EXIT_CODES`.
+    """
 
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
         debug = kwargs.get("debug", False)
         try:
-            return func(*args, **kwargs)
+            with _quiet_libraries(debug):
+                return func(*args, **kwargs)
         except LineamentError as exc:
             if debug:
                 traceback.print_exc()
@@ -38,13 +101,15 @@ def handle_errors(func):
             click.echo("lineament: interrupted; no output was written", err=True)
             sys.exit(130)
         except MemoryError:
+            if debug:
+                traceback.print_exc()
             fail("out of memory; use smaller scales or a smaller raster", 1)
         except (click.exceptions.Exit, click.exceptions.Abort, click.ClickException, SystemExit):
             raise
-        except Exception as exc:  # pragma: no cover - last resort, keeps the promise of no traceback
+        except Exception as exc:  # last resort, keeps the promise of no traceback
             if debug:
                 traceback.print_exc()
-            first = str(exc).splitlines()[0] if str(exc) else ""
+            first = one_line(exc)
             fail(f"unexpected {type(exc).__name__}: {first} (run again with --debug and report it)", 1)
 
     return wrapper
@@ -54,8 +119,9 @@ def load_config(ctx: click.Context, param: click.Parameter, value: str | None):
     """Eager callback of ``--config``: TOML keys become option defaults.
 
     Keys are the long option names, with dashes or underscores
-    (``min-length = 500``, ``scales = [30, 60, 120]``).  Options given on
-    the command line win over the file.
+    (``min-length = 500``, ``scales = [30, 60, 120]``), at the top level or
+    in a table named after the command (``[extract]``).  Options given on
+    the command line win over the file.  Every problem exits with code 2.
     """
     if not value:
         return value
@@ -65,15 +131,23 @@ def load_config(ctx: click.Context, param: click.Parameter, value: str | None):
             data = tomllib.load(fh)
     except FileNotFoundError:
         fail(f"{value}: no such config file", 2)
+    except IsADirectoryError:
+        fail(f"{value}: is a folder, not a config file", 2)
+    except UnicodeDecodeError:
+        fail(f"{value}: cannot read config file (not UTF-8 text)", 2)
     except (OSError, tomllib.TOMLDecodeError) as exc:
         fail(f"{value}: cannot read config file ({exc})", 2)
-    section = data.get(ctx.info_name, data) if isinstance(data.get(ctx.info_name), dict) else data
-    known = {p.name for p in ctx.command.params}
+    section = data[ctx.info_name] if isinstance(data.get(ctx.info_name), dict) else data
+    # only options can be set from a file; the input and --config itself cannot
+    known = {p.name for p in ctx.command.params
+             if isinstance(p, click.Option) and p.name not in ("config",) and p.expose_value}
     defaults = {}
     for key, val in section.items():
         name = key.replace("-", "_")
-        if name not in known or name in ("config", "inputs"):
+        if name not in known:
             fail(f"{value}: unknown setting {key!r}", 2)
+        if isinstance(val, dict):
+            fail(f"{value}: setting {key!r} must be a value, not a table", 2)
         if isinstance(val, list):
             val = ",".join(str(v) for v in val)
         defaults[name] = val

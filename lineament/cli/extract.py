@@ -2,12 +2,16 @@
 
 from __future__ import annotations
 
+import re
 import time
 
 import click
+from pyproj import CRS
+from pyproj.exceptions import CRSError
 
-from ..errors import SettingsError
-from ..pipeline import extract_file
+from ..errors import OutputError, SettingsError
+from ..pipeline import extract_raster
+from ..raster_io import read_raster
 from ..settings import ExtractionSettings, parse_scales
 from ..vector_io import check_output, write_lines
 from .common import CAUTION, handle_errors, load_config
@@ -16,13 +20,30 @@ from .common import CAUTION, handle_errors, load_config
 _DEFAULTS = ExtractionSettings()
 
 
+#: ExtractionSettings field -> command-line option, so messages name what the user typed.
+_OPTION_NAMES = {
+    "min_length_m": "--min-length", "simplify_tolerance_m": "--simplify", "z_factor": "--z-factor",
+    "high_threshold": "--high-threshold", "low_threshold": "--low-threshold",
+    "high_noise_multiple": "--high-noise-multiple", "low_noise_multiple": "--low-noise-multiple",
+    "assume_crs": "--assume-crs",
+}
+_OPTION_RE = re.compile(r"\b(" + "|".join(map(re.escape, _OPTION_NAMES)) + r")\b")
+
+
 def _float_or_none(value):
     return None if value is None else float(value)
 
 
+def _with_option_names(message: str) -> str:
+    """Replace settings field names (``z_factor``) by the options that set them (``--z-factor``)."""
+    return _OPTION_RE.sub(lambda m: _OPTION_NAMES[m.group(1)], message)
+
+
 @click.command("extract")
-@click.argument("input_path", metavar="INPUT", type=click.Path(dir_okay=False))
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
+# INPUT and --output are plain paths: their problems are reported by read_raster and
+# check_output with the documented exit codes (3 input, 4 output), not as usage errors.
+@click.argument("input_path", metavar="INPUT", type=click.Path())
+@click.option("-o", "--output", required=True, type=click.Path(),
               help="Output layer; the extension chooses the format: .gpkg (recommended), .fgb, .shp, .geojson.")
 @click.option("--scales", default=",".join(map(str, _DEFAULTS.scales)), show_default=True,
               help="Gaussian sigmas, comma-separated, in metres (30,60,120) or pixels with px (2px,4px). "
@@ -53,7 +74,7 @@ def _float_or_none(value):
 @click.option("--pixel-coordinates", is_flag=True,
               help="Accept a raster without georeferencing; lines are written in pixel units without a CRS.")
 @click.option("--overwrite", is_flag=True, help="Replace an existing output.")
-@click.option("--config", type=click.Path(dir_okay=False), callback=load_config, is_eager=True,
+@click.option("--config", type=click.Path(), callback=load_config, is_eager=True,
               expose_value=False, help="Read options from a TOML file (command-line options win).")
 @click.option("-q", "--quiet", is_flag=True, help="Print only errors.")
 @click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
@@ -80,11 +101,20 @@ def extract(input_path, output, scales, operator, band, min_length, simplify, hi
             z_factor=float(z_factor), allow_rotation=bool(allow_rotation), assume_crs=assume_crs,
             pixel_coordinates=bool(pixel_coordinates))
     except (TypeError, ValueError) as exc:
-        if isinstance(exc, SettingsError):
-            raise
-        raise SettingsError(str(exc)) from None
-    check_output(output, overwrite=overwrite)
-    result = extract_file(input_path, settings)
+        raise SettingsError(_with_option_names(str(exc))) from None
+    if assume_crs is not None:
+        try:
+            CRS.from_user_input(assume_crs)
+        except CRSError as exc:
+            first = (str(exc).splitlines() or ["not recognised"])[0]
+            raise SettingsError(f"--assume-crs {assume_crs!r} is not a CRS ({first})") from None
+    driver = check_output(output, overwrite=overwrite)
+    data = read_raster(input_path, settings)
+    if driver == "GeoJSON" and data.georef.crs is None:
+        # refuse before the (possibly long) extraction rather than after it
+        raise OutputError(f"{output}: GeoJSON is always WGS84, but {data.source} is processed without "
+                          "a CRS; write a GeoPackage (.gpkg) instead")
+    result = extract_raster(data, settings)
     write_lines(result, output, overwrite=overwrite)
     if not quiet:
         _summary(result, output, time.perf_counter() - t0)
