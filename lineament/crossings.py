@@ -210,62 +210,232 @@ def _hysteresis_runs(keep: np.ndarray, seed: np.ndarray, closed: bool) -> list[t
     return [(int(s) + start_shift, int(e) + start_shift) for s, e, h in zip(starts, ends, has_seed) if h]
 
 
+@dataclass(frozen=True)
+class Core:
+    """The part of the raster a tile owns, in global pixel indices (half-open).
+
+    A traced segment belongs to the tile whose core contains its midpoint,
+    with core edges on pixel edges (``row0 - 0.5`` to ``row1 - 0.5``), so
+    every segment has exactly one owner.
+    """
+
+    row0: int
+    col0: int
+    row1: int
+    col1: int
+
+    def owns(self, rows: np.ndarray, cols: np.ndarray) -> np.ndarray:
+        return ((rows >= self.row0 - 0.5) & (rows < self.row1 - 0.5)
+                & (cols >= self.col0 - 0.5) & (cols < self.col1 - 0.5))
+
+
+@dataclass(frozen=True)
+class Fragment:
+    """Part of a strong run that continues into another tile.
+
+    Attributes
+    ----------
+    rows, cols, strength : ndarray
+        Global pixel-centre indices and vertex strengths.
+    start_open, end_open : bool
+        Whether the run continues before the first / after the last vertex.
+    """
+
+    rows: np.ndarray
+    cols: np.ndarray
+    strength: np.ndarray
+    start_open: bool
+    end_open: bool
+
+
+def keep_run(rows: np.ndarray, cols: np.ndarray, strength: np.ndarray, *, high: float,
+             sustained: float | None, sustained_length_px: float) -> bool:
+    """Whether a run of vertices all at or above the low threshold is kept.
+
+    Kept when a vertex reaches ``high`` (a seed), or, when ``sustained`` is
+    given, when the run is at least ``sustained_length_px`` long and its mean
+    strength reaches ``sustained``.
+    """
+    if rows.size < 2:
+        return False
+    if float(strength.max()) >= high:
+        return True
+    if sustained is None:
+        return False
+    path = float(np.hypot(np.diff(rows), np.diff(cols)).sum())
+    return path >= sustained_length_px and float(np.mean(strength)) >= sustained
+
+
+def canonical_ring(rows: np.ndarray, cols: np.ndarray, strength: np.ndarray):
+    """Rotate a closed ring so it starts at its smallest (row, col) vertex, and close it."""
+    k = int(np.lexsort((cols, rows))[0])
+    idx = np.concatenate((np.arange(k, rows.size), np.arange(0, k + 1)))
+    return rows[idx], cols[idx], strength[idx]
+
+
+def trace_level_set(field: np.ndarray, strength: np.ndarray, usable: np.ndarray, *,
+                    high: float, low: float, sustained: float | None = None,
+                    sustained_length_px: float = np.inf, allowed: np.ndarray | None = None,
+                    offset: tuple[int, int] = (0, 0), core: Core | None = None):
+    """Trace the zero level set of ``field`` on one window; keep strong runs.
+
+    Parameters
+    ----------
+    field, strength : ndarray, shape (rows, cols), float32
+        Field whose zero level set is traced, and strength per pixel
+        (sampled at vertices by cubic convolution, :func:`sample_cubic`).
+    usable : ndarray of bool
+        Cells far enough from voids and the raster edge (nearest cell decides).
+    high, low, sustained, sustained_length_px
+        Hysteresis rule, see :func:`keep_run`.
+    allowed : ndarray of bool, optional
+        Where the level set counts at all (a sign condition of the detector).
+    offset : (int, int)
+        Global index of the window's first row and column.
+    core : Core, optional
+        The part of the raster this window owns (default: all of it).
+
+    Returns
+    -------
+    pieces : list of (rows, cols, strength)
+        Runs owned entirely by this window that pass the rule, in global
+        indices; closed rings start at their smallest vertex and repeat it
+        at the end.
+    fragments : list of Fragment
+        Owned parts of runs that continue into other windows; the rule is
+        applied after :func:`stitch_fragments` has joined them.
+    """
+    pieces: list = []
+    fragments: list[Fragment] = []
+    mask = usable if allowed is None else (usable & allowed)
+    if not mask.any():
+        return pieces, fragments
+    h, w = field.shape
+    if core is None:
+        core = Core(offset[0], offset[1], offset[0] + h, offset[1] + w)
+    for contour in find_contours(field, 0.0):
+        if contour.shape[0] < 2:
+            continue
+        closed = bool(np.array_equal(contour[0], contour[-1])) and contour.shape[0] > 3
+        if closed:
+            contour = contour[:-1]
+        lr, lc = contour[:, 0], contour[:, 1]
+        s = np.maximum(sample_cubic(strength, lr, lc), 0.0).astype(np.float32)
+        ri = np.clip(np.rint(lr).astype(np.intp), 0, h - 1)
+        ci = np.clip(np.rint(lc).astype(np.intp), 0, w - 1)
+        keep = mask[ri, ci] & (s >= low)
+        if not keep.any():
+            continue
+        rows = lr + offset[0]
+        cols = lc + offset[1]
+        n = rows.size
+        nxt = (np.arange(n) + 1) % n
+        owned = core.owns(0.5 * (rows + rows[nxt]), 0.5 * (cols + cols[nxt]))  # segment i -> i+1
+        for a, b in _hysteresis_runs(keep, keep, closed):
+            whole_ring = closed and b - a == n
+            idx = np.arange(a, b + (1 if whole_ring else 0)) % n
+            if idx.size < 2:
+                continue
+            seg_owned = owned[idx[:-1]]
+            if seg_owned.all():
+                pr, pc, ps = rows[idx], cols[idx], s[idx]
+                if whole_ring:
+                    pr, pc, ps = canonical_ring(pr[:-1], pc[:-1], ps[:-1])
+                if keep_run(pr, pc, ps, high=high, sustained=sustained,
+                            sustained_length_px=sustained_length_px):
+                    pieces.append((pr, pc, ps))
+                continue
+            if not seg_owned.any():
+                continue
+            # split the run's segments into maximal owned stretches
+            d = np.diff(np.concatenate(([0], seg_owned.astype(np.int8), [0])))
+            starts, ends = np.flatnonzero(d == 1), np.flatnonzero(d == -1)
+            m = seg_owned.size
+            for s0, e0 in zip(starts, ends):
+                vidx = idx[s0:e0 + 1]
+                start_open = s0 > 0 or whole_ring
+                end_open = e0 < m or whole_ring
+                fragments.append(Fragment(rows[vidx], cols[vidx], s[vidx], bool(start_open), bool(end_open)))
+    return pieces, fragments
+
+
+def _vertex_key(r: float, c: float) -> tuple[int, int]:
+    return (int(round(r * 1e6)), int(round(c * 1e6)))
+
+
+def stitch_fragments(fragments: list[Fragment]) -> list[tuple[np.ndarray, np.ndarray, np.ndarray, bool]]:
+    """Join fragments from neighbouring tiles into whole runs.
+
+    Fragments meet at a shared vertex (the end of one is the start of the
+    next; both tiles compute it identically), matched to 1e-6 px.
+
+    Returns
+    -------
+    list of (rows, cols, strength, closed)
+        Closed rings start at their smallest vertex and repeat it at the end.
+    """
+    by_start = {}
+    for i, f in enumerate(fragments):
+        if f.start_open:
+            by_start[_vertex_key(f.rows[0], f.cols[0])] = i
+    used = np.zeros(len(fragments), bool)
+    out = []
+
+    def follow(i: int):
+        parts = [i]
+        used[i] = True
+        while fragments[parts[-1]].end_open:
+            f = fragments[parts[-1]]
+            j = by_start.get(_vertex_key(f.rows[-1], f.cols[-1]))
+            if j is None or used[j]:
+                return parts, j is not None and j == parts[0]
+            used[j] = True
+            parts.append(j)
+        return parts, False
+
+    def join(parts):
+        rs = [fragments[parts[0]].rows] + [fragments[p].rows[1:] for p in parts[1:]]
+        cs = [fragments[parts[0]].cols] + [fragments[p].cols[1:] for p in parts[1:]]
+        ss = [fragments[parts[0]].strength] + [fragments[p].strength[1:] for p in parts[1:]]
+        return np.concatenate(rs), np.concatenate(cs), np.concatenate(ss)
+
+    order = sorted(range(len(fragments)), key=lambda k: (fragments[k].rows[0], fragments[k].cols[0]))
+    for i in order:
+        if used[i] or fragments[i].start_open:
+            continue
+        parts, _ = follow(i)
+        r, c, s = join(parts)
+        out.append((r, c, s, False))
+    for i in order:  # what is left are rings that cross tile edges
+        if used[i]:
+            continue
+        parts, closed = follow(i)
+        r, c, s = join(parts)
+        if closed:
+            r, c, s = canonical_ring(r[:-1], c[:-1], s[:-1])
+        out.append((r, c, s, closed))
+    return out
+
+
 def trace_zero_crossings(response: np.ndarray, strength: np.ndarray, usable: np.ndarray,
                          *, high: float, low: float, sustained: float | None = None,
-                         sustained_length_px: float = np.inf,
-                         min_vertices: int = 2) -> Iterator[CrossingPiece]:
-    """Trace the zero crossings of ``response`` and keep strong pieces.
+                         sustained_length_px: float = np.inf) -> Iterator[CrossingPiece]:
+    """Trace the zero crossings of a whole array and keep strong pieces.
 
     Parameters
     ----------
     response : ndarray, shape (rows, cols), float32
     strength : ndarray, shape (rows, cols), float32
-        Strength per pixel; vertices get it by cubic convolution (:func:`sample_cubic`).
     usable : ndarray of bool, shape (rows, cols)
-        Cells far enough from voids and the raster edge; a vertex is usable
-        when the nearest cell is.
-    high, low : float
-        Hysteresis thresholds on strength (``low <= high``).
-    sustained : float, optional
-        A run of vertices at or above ``low`` that has no seed is still kept
-        when it is at least ``sustained_length_px`` long (pixels along the
-        path) and its mean strength is at least ``sustained``: a long,
-        consistently strong crossing is as unlikely in a noisy background as
-        a single very strong vertex, because background strength decorrelates
-        within about one sigma along the path.
-    sustained_length_px : float
-        Path length a seedless run needs, in pixels.
-    min_vertices : int
-        Pieces with fewer vertices are not yielded.
+    high, low, sustained, sustained_length_px
+        Hysteresis rule, see :func:`keep_run`.
 
     Yields
     ------
     CrossingPiece
         Sub-pixel positions (pixel-centre convention) and vertex strengths.
     """
-    if not usable.any():
-        return
-    for contour in find_contours(response, 0.0):
-        if contour.shape[0] < min_vertices:
-            continue
-        closed = bool(np.array_equal(contour[0], contour[-1])) and contour.shape[0] > 2
-        if closed:
-            contour = contour[:-1]
-        rows, cols = contour[:, 0], contour[:, 1]
-        s = np.maximum(sample_cubic(strength, rows, cols), 0.0).astype(np.float32)
-        ri = np.clip(np.rint(rows).astype(np.intp), 0, usable.shape[0] - 1)
-        ci = np.clip(np.rint(cols).astype(np.intp), 0, usable.shape[1] - 1)
-        ok = usable[ri, ci]
-        keep = ok & (s >= low)
-        seed = ok & (s >= high)
-        n = rows.size
-        for a, b in _hysteresis_runs(keep, keep if sustained is not None else seed, closed):
-            idx = np.arange(a, b + (1 if closed and b - a == n else 0)) % n
-            if idx.size < min_vertices:
-                continue
-            if sustained is not None and not seed[idx].any():
-                pr, pc = rows[idx], cols[idx]
-                path = float(np.hypot(np.diff(pr), np.diff(pc)).sum())
-                if path < sustained_length_px or float(np.mean(s[idx])) < sustained:
-                    continue
-            yield CrossingPiece(rows[idx], cols[idx], s[idx])
+    pieces, _ = trace_level_set(response, strength, usable, high=high, low=low, sustained=sustained,
+                                sustained_length_px=sustained_length_px)
+    for r, c, s in pieces:
+        yield CrossingPiece(r, c, s)

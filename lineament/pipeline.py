@@ -1,46 +1,63 @@
 """The extraction pipeline: raster in, lineament records out.
 
-Data flow (one call of :func:`extract_array`)::
+Data flow::
 
-    values, valid, GeoRef
-      -> fill voids (normalised convolution)             scalespace.fill_voids
-      -> per scale: scale-normalised LoG or DoG          scalespace.log_response / dog_response
-      -> strength map and robust noise level            crossings.strength_map / robust_noise
-      -> zero crossings, hysteresis on strength          crossings.trace_zero_crossings
-      -> map coordinates, Douglas-Peucker, min length    vectorize.pieces_to_lines
-      -> Lineament records with attributes
+    source (array or file), settings
+      -> plan_run: scales in pixels, halo, centring offset, noise level and
+         thresholds per scale and detector (from tile-independent sample blocks)
+      -> per tile (serial, local processes or a Dask cluster):
+           read window = core + halo; centre; per scale: fill voids, detector
+           level set, usable cells; trace_level_set -> whole pieces + fragments
+      -> stitch fragments across tiles, apply the hysteresis rule to them
+      -> sort canonically; georeference, simplify, measure (vectorize)
+      -> ExtractionResult
 
-Nothing here reads or writes files except :func:`extract_file`, which reads
-the raster with :mod:`lineament.raster_io`.
+Every quantity a tile uses is either global (offset, thresholds) or computed
+from cells inside its window, so the lines do not depend on tile size,
+worker count or order of execution.
 """
 
 from __future__ import annotations
 
-import functools
 import math
 import os
 import time
 from dataclasses import dataclass, field
+from typing import Callable
 
 import numpy as np
 from scipy import ndimage
 
 from ._version import __version__
-from .crossings import noise_gain, robust_noise, step_strength_factor, strength_map, trace_zero_crossings
-from .errors import InputError
+from .crossings import MAD_TO_SIGMA, Core, Fragment, keep_run, stitch_fragments, trace_level_set
+from .detectors import Detector, detectors_for
+from .errors import InputError, SettingsError
 from .georef import GeoRef
-from .raster_io import RasterData, read_raster
-from .scalespace import dog_response, fill_voids, log_response
-from .settings import DOG_RATIO, ExtractionSettings
+from .raster_io import RasterData, open_raster
+from .scalespace import fill_voids
+from .settings import ExtractionSettings, Scale
+from .tiling import DEFAULT_TILE_SIZE, ArraySource, FileSource, Tile, spread_sample, tile_grid
 from .vectorize import Lineament, pieces_to_lines
+
+#: Core size of the blocks the noise level is measured on; fixed, so that the
+#: noise level (and every threshold) does not depend on the tile size.
+NOISE_BLOCK = 1024
+#: At most this many noise blocks, spread evenly over the raster.
+MAX_NOISE_BLOCKS = 64
+#: At most this many samples per noise component, pooled over blocks.
+MAX_NOISE_SAMPLES = 2_000_000
+#: Cells read to find the centring offset and the value range.
+OVERVIEW_PIXELS = 16_000_000
 
 
 @dataclass(frozen=True)
 class ScaleReport:
-    """What happened at one scale: sigma, noise level, thresholds, output."""
+    """What happened at one scale and detector: sigma, noise level, thresholds, output."""
 
     scale_m: float
     scale_px: float
+    kind: str
+    operator: str
     noise: float
     high_threshold: float
     low_threshold: float
@@ -51,6 +68,50 @@ class ScaleReport:
         return {k: (round(v, 6) if isinstance(v, float) else v) for k, v in self.__dict__.items()}
 
 
+@dataclass(frozen=True)
+class ScalePlan:
+    """One scale: sigma in metres and in pixels along rows and columns."""
+
+    scale: Scale
+    sigma_m: float
+    sigma_rc: tuple[float, float]
+
+    @property
+    def scale_px(self) -> float:
+        return math.sqrt(self.sigma_rc[0] * self.sigma_rc[1])
+
+
+@dataclass(frozen=True)
+class Thresholds:
+    noise: float
+    high: float
+    low: float
+    sustained: float | None
+
+
+@dataclass(frozen=True)
+class RunPlan:
+    """Everything a tile needs, identical for every tile of a run."""
+
+    georef: GeoRef
+    pixel_m: tuple[float, float]
+    settings: ExtractionSettings
+    scales: tuple[ScalePlan, ...]
+    detectors: tuple[Detector, ...]
+    halo: tuple[int, int]
+    offset: float
+    rounding_std: float
+    thresholds: dict = field(default_factory=dict)  # (scale index, detector index) -> Thresholds
+
+
+@dataclass
+class TileOutput:
+    """Pieces a tile owns whole, and fragments that continue into other tiles."""
+
+    pieces: list  # (scale index, detector index, rows, cols, strength)
+    fragments: list  # (scale index, detector index, Fragment)
+
+
 @dataclass
 class ExtractionResult:
     """Lines found in one raster plus everything needed to report and reproduce the run.
@@ -58,12 +119,15 @@ class ExtractionResult:
     Attributes
     ----------
     lines : list of Lineament
+        In a canonical order: by scale, detector, then first vertex.
     georef : GeoRef
     source : str
     settings : ExtractionSettings
     scales : list of ScaleReport
     seconds : float
         Wall time of the extraction.
+    tiles : int
+        Number of tiles processed.
     """
 
     lines: list[Lineament]
@@ -72,6 +136,7 @@ class ExtractionResult:
     settings: ExtractionSettings
     scales: list[ScaleReport] = field(default_factory=list)
     seconds: float = 0.0
+    tiles: int = 1
 
     @property
     def total_length_m(self) -> float:
@@ -94,25 +159,310 @@ class ExtractionResult:
         }
 
 
-def _usable_cells(valid: np.ndarray, sigma_rc: tuple[float, float], margin_sigmas: float) -> np.ndarray:
-    """Cells at least ``margin_sigmas`` sigmas from any void and from the raster edge."""
-    if margin_sigmas <= 0:
-        return valid.copy()
-    padded = np.pad(valid, 1, constant_values=False)
-    # distance in units of sigma along each axis
-    dist = ndimage.distance_transform_edt(padded, sampling=(1.0 / sigma_rc[0], 1.0 / sigma_rc[1]))
-    return dist[1:-1, 1:-1] > margin_sigmas
+# --------------------------------------------------------------------------- planning
+def _scale_plans(georef: GeoRef, settings: ExtractionSettings, source: str) -> tuple[tuple[float, float], list[ScalePlan]]:
+    pixel_m = georef.pixel_size_m()
+    if georef.crs is None and any(s.unit == "m" for s in settings.scales):
+        raise SettingsError(f"{source}: no CRS, so scales must be given in pixels (e.g. 2px,4px)")
+    plans = []
+    for s in settings.scales:
+        sigma_m = s.sigma_m(pixel_m)
+        plans.append(ScalePlan(s, sigma_m, (sigma_m / pixel_m[1], sigma_m / pixel_m[0])))
+    smallest = min(plans[0].sigma_rc)
+    if smallest < 0.5:
+        raise SettingsError(f"{source}: scale {settings.scales[0]} is {smallest:.2f} pixels; use scales of at "
+                            f"least 1 pixel (pixel size {pixel_m[0]:.3g} x {pixel_m[1]:.3g} m)")
+    largest = plans[-1].sigma_rc
+    need = [2 * settings.void_margin_sigmas * x + 3 for x in largest]
+    if georef.height < need[0] or georef.width < need[1]:
+        raise InputError(f"{source}: raster of {georef.height} x {georef.width} pixels is too small for scale "
+                         f"{settings.scales[-1]} (needs at least {math.ceil(need[0])} x {math.ceil(need[1])})")
+    return pixel_m, plans
 
 
+def _halo(plans: list[ScalePlan], detectors: list[Detector], settings: ExtractionSettings) -> tuple[int, int]:
+    """Cells a window needs beyond its core: fill reach + kernel reach + margin + stencils."""
+    reach = max(d.reach_factor for d in detectors) * settings.truncate
+    out = []
+    for axis in (0, 1):
+        sigma = max(p.sigma_rc[axis] for p in plans)
+        out.append(int(math.ceil((settings.truncate + reach + settings.void_margin_sigmas) * sigma)) + 6)
+    return (out[0], out[1])
+
+
+def _centre(values: np.ndarray, valid: np.ndarray, offset: float, z_factor: float) -> np.ndarray:
+    with np.errstate(invalid="ignore", over="ignore"):
+        arr = np.where(valid, (values - offset) * z_factor, 0).astype(np.float32)
+    return arr
+
+
+def _usable(valid: np.ndarray, edges: tuple[bool, bool, bool, bool], pixel_m: tuple[float, float]) -> np.ndarray | None:
+    """Distance in metres from each cell to the nearest void or raster edge (None: nothing near).
+
+    Window sides inside the raster are padded as valid, raster edges as void.
+    """
+    top, bottom, left, right = edges
+    if valid.all() and not any(edges):
+        return None
+    padded = np.pad(valid, 1, constant_values=True)
+    if top:
+        padded[0, :] = False
+    if bottom:
+        padded[-1, :] = False
+    if left:
+        padded[:, 0] = False
+    if right:
+        padded[:, -1] = False
+    dist = ndimage.distance_transform_edt(padded, sampling=(pixel_m[1], pixel_m[0]))
+    return dist[1:-1, 1:-1]
+
+
+def _window_level_sets(plan: RunPlan, values: np.ndarray, valid: np.ndarray, edges):
+    """Yield (scale index, detector index, LevelSet, usable mask) for one window."""
+    s = plan.settings
+    arr = _centre(values, valid, plan.offset, s.z_factor)
+    dist = _usable(valid, edges, plan.pixel_m)
+    for si, sp in enumerate(plan.scales):
+        filled = fill_voids(arr, valid, sp.sigma_rc, truncate=s.truncate)
+        usable = np.ones(valid.shape, bool) if dist is None else dist > s.void_margin_sigmas * sp.sigma_m
+        for di, det in enumerate(plan.detectors):
+            ls = det.run(filled, sp.sigma_m, plan.pixel_m, truncate=s.truncate, rounding_std=plan.rounding_std)
+            yield si, di, ls, usable
+
+
+def _noise_samples(plan: RunPlan, tile: Tile, values, valid, per_block: int) -> dict:
+    """Noise components at usable core cells of one block, subsampled on a fixed lattice."""
+    r0, c0 = tile.offset
+    core = tile.core
+    sl = (slice(core.row0 - r0, core.row1 - r0), slice(core.col0 - c0, core.col1 - c0))
+    out: dict = {}
+    for si, di, ls, usable in _window_level_sets(plan, values, valid, tile.edges(plan.georef.shape)):
+        ok = usable[sl]
+        if ls.allowed is not None:
+            ok = ok & ls.allowed[sl]
+        idx = np.flatnonzero(ok.ravel())
+        step = max(1, idx.size // max(1, per_block))
+        idx = idx[::step]
+        comps = [np.asarray(c[sl]).ravel()[idx] for c in ls.noise_samples]
+        out[(si, di)] = (np.concatenate(comps).astype(np.float64) if comps else np.zeros(0), ls.noise_floor,
+                         ls.noise_factor)
+    return out
+
+
+def _trace_tile(plan: RunPlan, tile: Tile, values, valid) -> TileOutput:
+    pieces, fragments = [], []
+    for si, di, ls, usable in _window_level_sets(plan, values, valid, tile.edges(plan.georef.shape)):
+        th = plan.thresholds[(si, di)]
+        sp = plan.scales[si]
+        p, f = trace_level_set(ls.field, ls.strength, usable, high=th.high, low=th.low, sustained=th.sustained,
+                               sustained_length_px=plan.settings.min_length_sigmas * min(sp.sigma_rc),
+                               allowed=ls.allowed, offset=tile.offset, core=tile.core)
+        pieces.extend((si, di, r, c, st) for r, c, st in p)
+        fragments.extend((si, di, fr) for fr in f)
+    return TileOutput(pieces, fragments)
+
+
+def run_tile_task(task) -> object:
+    """Worker entry point: ``(kind, plan, source, tile, data, per_block)`` -> samples or TileOutput."""
+    kind, plan, source, tile, data, per_block = task
+    values, valid = data if data is not None else source.read(tile.window)
+    if kind == "noise":
+        return _noise_samples(plan, tile, values, valid, per_block)
+    return _trace_tile(plan, tile, values, valid)
+
+
+def _thresholds(settings: ExtractionSettings, noise: float) -> Thresholds:
+    high = settings.high_threshold if settings.high_threshold is not None else settings.high_noise_multiple * noise
+    low = settings.low_threshold if settings.low_threshold is not None else settings.low_noise_multiple * noise
+    low = min(low, high)
+    sustained = None
+    if settings.high_threshold is None:
+        sustained = min(high, max(low, settings.sustained_noise_multiple * noise))
+    return Thresholds(noise, high, low, sustained)
+
+
+# --------------------------------------------------------------------------- execution
+Executor = Callable[[list], list]
+
+
+def serial_executor(tasks: list, progress: Callable[[int, int], None] | None = None) -> list:
+    out = []
+    for k, t in enumerate(tasks):
+        out.append(run_tile_task(t))
+        if progress:
+            progress(k + 1, len(tasks))
+    return out
+
+
+def process_executor(workers: int):
+    """Run tasks in ``workers`` local processes; results in task order."""
+    from concurrent.futures import ProcessPoolExecutor, as_completed
+
+    def run(tasks: list, progress=None) -> list:
+        if workers <= 1 or len(tasks) <= 1:
+            return serial_executor(tasks, progress)
+        out: list = [None] * len(tasks)
+        with ProcessPoolExecutor(max_workers=workers) as pool:
+            futures = {pool.submit(run_tile_task, t): k for k, t in enumerate(tasks)}
+            for done, fut in enumerate(as_completed(futures), 1):
+                out[futures[fut]] = fut.result()
+                if progress:
+                    progress(done, len(tasks))
+        return out
+
+    return run
+
+
+def dask_executor(address: str):
+    """Run tasks on an existing Dask distributed scheduler; results in task order."""
+    try:
+        from dask.distributed import Client, as_completed
+    except ImportError:
+        raise SettingsError("--cluster needs Dask: pip install 'lineament[cluster]'") from None
+
+    def run(tasks: list, progress=None) -> list:
+        try:
+            client = Client(address, timeout="10s")
+        except OSError as exc:
+            raise SettingsError(f"cannot reach the Dask scheduler at {address} ({exc})") from None
+        try:
+            futures = client.map(run_tile_task, tasks, pure=False)
+            index = {f.key: k for k, f in enumerate(futures)}
+            out: list = [None] * len(tasks)
+            for done, fut in enumerate(as_completed(futures), 1):
+                out[index[fut.key]] = fut.result()
+                if progress:
+                    progress(done, len(tasks))
+            return out
+        finally:
+            client.close()
+
+    return run
+
+
+# --------------------------------------------------------------------------- driver
+def default_workers() -> int:
+    """Cores available to this process."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # pragma: no cover - not on Linux
+        return max(1, os.cpu_count() or 1)
+
+
+def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_size: int | None = None,
+                   executor=None, progress: Callable[[int, int], None] | None = None) -> ExtractionResult:
+    """Extract lineaments from an :class:`ArraySource` or :class:`FileSource`.
+
+    Parameters
+    ----------
+    source : ArraySource or FileSource
+    settings : ExtractionSettings, optional
+    tile_size : int, optional
+        Core size of tiles in pixels (default :data:`~lineament.tiling.DEFAULT_TILE_SIZE`).
+    executor : callable, optional
+        ``executor(tasks, progress) -> results``; default serial.
+    progress : callable, optional
+        Called as ``progress(done, total)`` after each tile.
+
+    Returns
+    -------
+    ExtractionResult
+    """
+    t0 = time.perf_counter()
+    settings = settings or ExtractionSettings()
+    tile_size = int(tile_size or DEFAULT_TILE_SIZE)
+    if tile_size < 64:
+        raise SettingsError(f"tile size must be at least 64 pixels, got {tile_size}")
+    executor = executor or serial_executor
+    georef, name = source.georef, source.source
+    pixel_m, scales = _scale_plans(georef, settings, name)
+    detectors = detectors_for(settings)
+    halo = _halo(scales, detectors, settings)
+
+    # global centring offset and value range, from a tile-independent overview
+    ov_values, ov_valid = source.overview(OVERVIEW_PIXELS)
+    if not ov_valid.any():
+        raise InputError(f"{name}: no valid cells (everything is nodata, NaN or infinite)")
+    offset = float(np.median(ov_values[ov_valid]))
+    with np.errstate(invalid="ignore", over="ignore"):
+        span = float(np.max(np.abs((ov_values[ov_valid] - offset) * settings.z_factor)))
+    if not math.isfinite(span) or span > float(np.finfo(np.float32).max) / 16:
+        raise InputError(f"{name}: values overflow float32 after centring and the z factor")
+    rounding_std = 4.0 * float(np.finfo(np.float32).eps) * span
+    plan = RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset, rounding_std)
+
+    def task(kind, tile, per_block=0):
+        data = None if source.reads_in_worker else source.read(tile.window)
+        return (kind, plan, source, tile, data, per_block)
+
+    # noise level per scale and detector, on fixed blocks
+    blocks = spread_sample(tile_grid(georef.shape, NOISE_BLOCK, halo), MAX_NOISE_BLOCKS)
+    per_block = MAX_NOISE_SAMPLES // len(blocks)
+    samples = executor([task("noise", b, per_block) for b in blocks], None)
+    thresholds = {}
+    for si in range(len(scales)):
+        for di in range(len(detectors)):
+            parts = [s[(si, di)] for s in samples]
+            comps = np.concatenate([p[0] for p in parts])
+            floor, factor = parts[0][1], parts[0][2]
+            robust = 0.0
+            if comps.size:
+                med = np.median(comps)
+                robust = float(MAD_TO_SIGMA * np.median(np.abs(comps - med))) * factor
+            thresholds[(si, di)] = _thresholds(settings, max(robust, floor))
+    plan = RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset, rounding_std,
+                   thresholds)
+
+    tiles = tile_grid(georef.shape, tile_size, halo)
+    outputs = executor([task("trace", t) for t in tiles], progress)
+    return _finish(plan, outputs, name, len(tiles), time.perf_counter() - t0)
+
+
+def _finish(plan: RunPlan, outputs: list[TileOutput], name: str, n_tiles: int, seconds: float) -> ExtractionResult:
+    s = plan.settings
+    groups: dict = {}
+    for out in outputs:
+        for si, di, r, c, st in out.pieces:
+            groups.setdefault((si, di), []).append((r, c, st))
+    frags: dict = {}
+    for out in outputs:
+        for si, di, fr in out.fragments:
+            frags.setdefault((si, di), []).append(fr)
+    for key, fl in frags.items():
+        th = plan.thresholds[key]
+        sp = plan.scales[key[0]]
+        for r, c, st, _closed in stitch_fragments(fl):
+            if keep_run(r, c, st, high=th.high, sustained=th.sustained,
+                        sustained_length_px=s.min_length_sigmas * min(sp.sigma_rc)):
+                groups.setdefault(key, []).append((r, c, st))
+    lines: list[Lineament] = []
+    reports: list[ScaleReport] = []
+    tol = s.simplify_tolerance_m if s.simplify_tolerance_m is not None else 0.5 * min(plan.pixel_m)
+    for si, sp in enumerate(plan.scales):
+        for di, det in enumerate(plan.detectors):
+            th = plan.thresholds[(si, di)]
+            pieces = sorted(groups.get((si, di), []), key=lambda p: (float(p[0][0]), float(p[1][0])))
+            min_len = s.min_length_m if s.min_length_m is not None else s.min_length_sigmas * sp.sigma_m
+            found = pieces_to_lines(pieces, plan.georef, tolerance_m=tol, min_length_m=min_len,
+                                    attributes={"scale_m": sp.sigma_m, "scale_px": sp.scale_px,
+                                                "operator": det.operator, "kind": det.kind, "source": name})
+            lines.extend(found)
+            reports.append(ScaleReport(sp.sigma_m, sp.scale_px, det.kind, det.operator, th.noise, th.high, th.low,
+                                       len(found), float(sum(f.length_m for f in found))))
+    return ExtractionResult(lines, plan.georef, name, s, reports, seconds, n_tiles)
+
+
+# --------------------------------------------------------------------------- public API
 def extract_array(values: np.ndarray, georef: GeoRef, settings: ExtractionSettings | None = None, *,
-                  valid: np.ndarray | None = None, source: str = "array") -> ExtractionResult:
+                  valid: np.ndarray | None = None, source: str = "array", tile_size: int | None = None,
+                  workers: int = 1) -> ExtractionResult:
     """Find lineaments in an array.
 
     Parameters
     ----------
     values : ndarray, shape (rows, cols)
-        Elevations (DEM) or grey levels (image); converted to float32.
-        NaN and infinite values count as voids.
+        Elevations (DEM) or grey levels (image).  NaN and infinite values
+        count as voids.
     georef : GeoRef
         Georeferencing of the grid.
     settings : ExtractionSettings, optional
@@ -120,6 +470,10 @@ def extract_array(values: np.ndarray, georef: GeoRef, settings: ExtractionSettin
         False at nodata cells.
     source : str
         Written to each line's ``source`` attribute.
+    tile_size : int, optional
+        Process in tiles of this many pixels (results do not depend on it).
+    workers : int
+        Local processes to use.
 
     Returns
     -------
@@ -137,8 +491,6 @@ def extract_array(values: np.ndarray, georef: GeoRef, settings: ExtractionSettin
     >>> round(result.lines[0].azimuth_grid_deg)
     0
     """
-    t0 = time.perf_counter()
-    settings = settings or ExtractionSettings()
     arr = np.asarray(values)
     if arr.ndim != 2:
         raise InputError(f"{source}: expected a 2-D array, got shape {arr.shape}")
@@ -153,91 +505,41 @@ def extract_array(values: np.ndarray, georef: GeoRef, settings: ExtractionSettin
         ok &= np.asarray(valid, dtype=bool)
     if not ok.any():
         raise InputError(f"{source}: no valid cells (everything is nodata, NaN or infinite)")
-    pixel_m = georef.pixel_size_m()
-    if georef.crs is None and any(s.unit == "m" for s in settings.scales):
-        raise InputError(f"{source}: no CRS, so scales must be given in pixels (e.g. 2px,4px)")
-    sigmas = [s.sigma_m(pixel_m) for s in settings.scales]
-    smallest_px = min(sigmas[0] / pixel_m[0], sigmas[0] / pixel_m[1])
-    if smallest_px < 0.5:
-        raise InputError(f"{source}: scale {settings.scales[0]} is {smallest_px:.2f} pixels; "
-                         "use scales of at least 1 pixel (pixel size "
-                         f"{pixel_m[0]:.3g} x {pixel_m[1]:.3g} m)")
-    largest_px = max(sigmas[-1] / pixel_m[0], sigmas[-1] / pixel_m[1])
-    need = 2 * settings.void_margin_sigmas * largest_px + 3
-    if min(arr.shape) < need:
-        raise InputError(f"{source}: raster of {arr.shape[0]} x {arr.shape[1]} pixels is too small for "
-                         f"scale {settings.scales[-1]} (needs at least {math.ceil(need)} pixels across)")
-    # Remove the median so float32 keeps small differences (the Laplacian ignores a constant),
-    # then apply the z factor.
-    offset = np.median(arr[ok])
-    with np.errstate(invalid="ignore", over="ignore"):
-        arr = np.where(ok, (arr - offset) * settings.z_factor, 0).astype(np.float32)
-    if not np.isfinite(arr).all():
-        raise InputError(f"{source}: values overflow float32 after centring and the z factor")
-    filled = fill_voids(arr, ok, sigmas[0] / min(pixel_m))
-    # float32 rounding noise of the centred values, a few units in the last place
-    rounding_std = 4.0 * float(np.finfo(np.float32).eps) * float(np.abs(filled).max())
-
-    lines: list[Lineament] = []
-    reports: list[ScaleReport] = []
-    response_scale = 2.0 / (DOG_RATIO - 1.0 / DOG_RATIO) if settings.operator == "dog" else 1.0
-    for scale, sigma_m in zip(settings.scales, sigmas):
-        sigma_rc = (sigma_m / pixel_m[1], sigma_m / pixel_m[0])
-        if settings.operator == "log":
-            resp = log_response(filled, sigma_m, pixel_m, truncate=settings.truncate)
-        else:
-            resp = dog_response(filled, sigma_m, pixel_m, ratio=DOG_RATIO, truncate=settings.truncate)
-        strength, gx, gy = strength_map(resp, sigma_m, pixel_m)
-        usable = _usable_cells(ok, sigma_rc, settings.void_margin_sigmas)
-        # Noise level: robust spread of the response gradient, floored by what float32
-        # rounding of the input alone would produce (flat areas, synthetic data).
-        response_of = functools.partial(log_response if settings.operator == "log" else dog_response,
-                                        sigma_m=sigma_m, pixel_size_m=pixel_m, truncate=settings.truncate)
-        floor_in = rounding_std * noise_gain(response_of, sigma_m, pixel_m, truncate=settings.truncate)
-        # rounding of the response itself (the DoG subtracts two nearly equal blurred images),
-        # through the 5-point derivative whose white-noise gain is sqrt(130) / 12 per pixel
-        floor_out = rounding_std * response_scale * math.sqrt(130.0) / 12.0 / min(pixel_m)
-        floor = max(floor_in, floor_out)
-        noise = max(robust_noise(gx, gy, usable), floor) * step_strength_factor(sigma_m)
-        high = settings.high_threshold if settings.high_threshold is not None else settings.high_noise_multiple * noise
-        low = settings.low_threshold if settings.low_threshold is not None else settings.low_noise_multiple * noise
-        low = min(low, high)
-        min_len = settings.min_length_m if settings.min_length_m is not None else settings.min_length_sigmas * sigma_m
-        sustained = None
-        if settings.high_threshold is None:
-            sustained = min(high, max(low, settings.sustained_noise_multiple * noise))
-        pieces = trace_zero_crossings(resp, strength, usable, high=high, low=low, sustained=sustained,
-                                      sustained_length_px=settings.min_length_sigmas * min(sigma_rc))
-        tol = settings.simplify_tolerance_m
-        if tol is None:
-            tol = 0.5 * min(pixel_m)
-        scale_px = sigma_m / math.sqrt(pixel_m[0] * pixel_m[1])
-        found = pieces_to_lines(pieces, georef, tolerance_m=tol, min_length_m=min_len,
-                                attributes={"scale_m": sigma_m, "scale_px": scale_px,
-                                            "operator": settings.operator, "kind": "edge", "source": source})
-        lines.extend(found)
-        reports.append(ScaleReport(sigma_m, scale_px, noise, high, low, len(found),
-                                   float(sum(f.length_m for f in found))))
-    return ExtractionResult(lines, georef, source, settings, reports, time.perf_counter() - t0)
+    settings = settings or ExtractionSettings()
+    return run_extraction(ArraySource(arr, ok, georef, source), settings, tile_size=tile_size,
+                          executor=process_executor(workers) if workers > 1 else None)
 
 
-def extract_raster(data: RasterData, settings: ExtractionSettings | None = None) -> ExtractionResult:
+def extract_raster(data: RasterData, settings: ExtractionSettings | None = None, **kwargs) -> ExtractionResult:
     """Run :func:`extract_array` on a :class:`~lineament.raster_io.RasterData`."""
-    return extract_array(data.values, data.georef, settings, valid=data.valid, source=data.source)
+    return extract_array(data.values, data.georef, settings, valid=data.valid, source=data.source, **kwargs)
 
 
-def extract_file(path: str | os.PathLike, settings: ExtractionSettings | None = None) -> ExtractionResult:
-    """Read a raster file and find its lineaments.
+def extract_file(path: str | os.PathLike, settings: ExtractionSettings | None = None, *,
+                 tile_size: int | None = None, workers: int = 1, cluster: str | None = None,
+                 progress: Callable[[int, int], None] | None = None) -> ExtractionResult:
+    """Read a raster file tile by tile and find its lineaments.
 
     Parameters
     ----------
     path : path-like
         GeoTIFF (or any raster GDAL reads): a DEM or an image.
     settings : ExtractionSettings, optional
+    tile_size : int, optional
+        Core size of tiles in pixels; memory grows with it, results do not change.
+    workers : int
+        Local processes (ignored with ``cluster``).
+    cluster : str, optional
+        Address of a Dask distributed scheduler (``tcp://host:8786``); its
+        workers must be able to read ``path``.
+    progress : callable, optional
+        ``progress(done, total)`` after each tile.
 
     Returns
     -------
     ExtractionResult
     """
     settings = settings or ExtractionSettings()
-    return extract_raster(read_raster(path, settings), settings)
+    source = FileSource(open_raster(path, settings))
+    executor = dask_executor(cluster) if cluster else process_executor(workers)
+    return run_extraction(source, settings, tile_size=tile_size, executor=executor, progress=progress)

@@ -122,73 +122,48 @@ def resolve_georef(ds, name: str, settings: ExtractionSettings) -> GeoRef:
     return georef
 
 
-def read_raster(path: str | os.PathLike, settings: ExtractionSettings | None = None) -> RasterData:
-    """Read a raster for extraction.
+@dataclass(frozen=True)
+class RasterInfo:
+    """An input raster checked and described, ready for windowed reads.
 
-    A single-band raster (alpha bands aside) is used as is; a multi-band
-    image is reduced to luminance (ITU-R BT.709 weights on the red, green
-    and blue bands) unless ``settings.band`` names one band.  Values become
-    float32 (float64 for 32- and 64-bit integers and float64, so that wide
-    ranges keep their precision until the pipeline removes the median);
-    nodata, masked (mask or alpha band), NaN and infinite cells become
-    invalid.
-
-    Parameters
+    Attributes
     ----------
-    path : path-like
-        Any raster GDAL reads (GeoTIFF expected).
-    settings : ExtractionSettings, optional
-
-    Returns
-    -------
-    RasterData
-
-    Raises
-    ------
-    RasterReadError
-        The file is missing or not a readable raster.
-    InputError
-        The raster cannot be used (georeferencing, band, no valid data).
-    SettingsError
-        ``settings.assume_crs`` is not a CRS.
+    path : str
+        Path or URL as given.
+    georef : GeoRef
+    bands : tuple of int
+        1-based bands read: one band, or red, green, blue for luminance.
+    description : str
+    source : str
+        File name written to the ``source`` attribute.
+    dtype : str
+        Storage type of the bands.
     """
-    settings = settings or ExtractionSettings()
-    name = os.fspath(path)
-    if not os.path.exists(name) and "://" not in name and not name.startswith("/vsi"):
-        raise RasterReadError(f"{name}: no such file")
-    if os.path.isdir(name):
-        raise RasterReadError(f"{name}: is a folder, not a raster")
-    if os.path.isfile(name) and os.path.getsize(name) == 0:
-        raise RasterReadError(f"{name}: file is empty, not a raster")
+
+    path: str
+    georef: GeoRef
+    bands: tuple
+    description: str
+    source: str
+    dtype: str
+
+
+def _open(name: str):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", NotGeoreferencedWarning)
+        try:
+            return rasterio.open(name)
+        except RasterioError as exc:
+            raise RasterReadError(f"{name}: not a raster GDAL can open ({_gdal_message(exc, name)})") from None
+
+
+def _guard(name: str, func):
+    """Run ``func`` and turn rasterio/GDAL failures into one-line RasterReadErrors."""
     try:
-        # The "no geotransform" warning is replaced by our own error or by --pixel-coordinates.
         with warnings.catch_warnings():
+            # The "no geotransform" warning is replaced by our own error or by --pixel-coordinates.
             warnings.simplefilter("ignore", NotGeoreferencedWarning)
-            try:
-                ds = rasterio.open(name)
-            except RasterioError as exc:
-                raise RasterReadError(f"{name}: not a raster GDAL can open "
-                                      f"({_gdal_message(exc, name)})") from None
-            with ds:
-                georef = resolve_georef(ds, name, settings)
-                data_bands = _data_bands(ds)
-                if settings.band is not None:
-                    if settings.band > ds.count:
-                        raise InputError(f"{name}: band {settings.band} asked for, but the raster has "
-                                         f"{ds.count} band{'s' if ds.count != 1 else ''}")
-                    bands: tuple[int, ...] = (settings.band,)
-                    description = f"band {settings.band}"
-                elif len(data_bands) == 1:
-                    bands = (data_bands[0],)
-                    description = f"band {data_bands[0]}"
-                else:
-                    rgb = _rgb_bands(ds)
-                    if rgb is None:
-                        raise InputError(f"{name}: {ds.count} bands and none tagged red/green/blue; "
-                                         "choose one with --band N")
-                    bands = rgb
-                    description = "luminance of bands " + ",".join(map(str, rgb))
-                data = ds.read(list(bands), masked=True)
+            return func()
     except (InputError, RasterReadError, SettingsError):
         raise
     except (RasterioError, CRSError, OSError) as exc:
@@ -202,23 +177,124 @@ def read_raster(path: str | os.PathLike, settings: ExtractionSettings | None = N
             raise RasterReadError(f"{name}: cannot read raster ({_gdal_message(exc, name)})") from None
         raise
 
+
+def open_raster(path: str | os.PathLike, settings: ExtractionSettings | None = None) -> RasterInfo:
+    """Check an input raster and decide what to read from it (no pixels are read).
+
+    A single-band raster (alpha bands aside) is used as is; a multi-band
+    image is reduced to luminance (ITU-R BT.709 weights on the red, green
+    and blue bands) unless ``settings.band`` names one band.
+
+    Raises
+    ------
+    RasterReadError
+        The file is missing or not a readable raster.
+    InputError
+        The raster cannot be used (georeferencing, band).
+    SettingsError
+        ``settings.assume_crs`` is not a CRS.
+    """
+    settings = settings or ExtractionSettings()
+    name = os.fspath(path)
+    if not os.path.exists(name) and "://" not in name and not name.startswith("/vsi"):
+        raise RasterReadError(f"{name}: no such file")
+    if os.path.isdir(name):
+        raise RasterReadError(f"{name}: is a folder, not a raster")
+    if os.path.isfile(name) and os.path.getsize(name) == 0:
+        raise RasterReadError(f"{name}: file is empty, not a raster")
+
+    def inspect():
+        with _open(name) as ds:
+            georef = resolve_georef(ds, name, settings)
+            data_bands = _data_bands(ds)
+            if settings.band is not None:
+                if settings.band > ds.count:
+                    raise InputError(f"{name}: band {settings.band} asked for, but the raster has "
+                                     f"{ds.count} band{'s' if ds.count != 1 else ''}")
+                bands: tuple[int, ...] = (settings.band,)
+                description = f"band {settings.band}"
+            elif len(data_bands) == 1:
+                bands = (data_bands[0],)
+                description = f"band {data_bands[0]}"
+            else:
+                rgb = _rgb_bands(ds)
+                if rgb is None:
+                    raise InputError(f"{name}: {ds.count} bands and none tagged red/green/blue; "
+                                     "choose one with --band N")
+                bands = rgb
+                description = "luminance of bands " + ",".join(map(str, rgb))
+            dtype = ds.dtypes[bands[0] - 1]
+        if np.dtype(dtype).kind not in "iuf":
+            raise InputError(f"{name}: values of type {dtype} are not real numbers; "
+                             "convert the band to a real type first")
+        return RasterInfo(name, georef, bands, description, os.path.basename(name.rstrip("/")) or name, dtype)
+
+    return _guard(name, inspect)
+
+
+def _to_values(data: np.ma.MaskedArray, bands: tuple) -> tuple[np.ndarray, np.ndarray]:
     mask = np.ma.getmaskarray(data).any(axis=0)
     raw = np.ma.getdata(data)
-    if raw.dtype.kind not in "iuf":
-        raise InputError(f"{name}: values of type {raw.dtype} are not real numbers; "
-                         "convert the band to a real type first")
     # small integers and float32 fit float32 exactly; wider types stay float64 until centred
     wide = raw.dtype.itemsize > 2 and raw.dtype != np.float32
     arr = raw.astype(np.float64 if wide else np.float32, copy=False)
     with np.errstate(invalid="ignore"):
         valid = ~mask & np.isfinite(arr).all(axis=0)
-    if not valid.any():
-        raise InputError(f"{name}: no valid cells (everything is nodata, NaN or infinite)")
     if len(bands) == 3:
         w = LUMA_709
         with np.errstate(invalid="ignore", over="ignore"):
             values = w[0] * arr[0] + w[1] * arr[1] + w[2] * arr[2]
     else:
         values = arr[0]
-    values = np.where(valid, values, 0).astype(arr.dtype)
-    return RasterData(values, valid, georef, os.path.basename(name.rstrip("/")) or name, description)
+    return np.where(valid, values, 0).astype(arr.dtype), valid
+
+
+def read_window(info: RasterInfo, row0: int, col0: int, row1: int, col1: int) -> tuple[np.ndarray, np.ndarray]:
+    """Read rows ``row0:row1`` and columns ``col0:col1`` of a checked raster.
+
+    Returns
+    -------
+    values : ndarray, float32 (float64 for 32-bit integer or float64 data)
+        Values as stored (luminance for RGB); 0 where invalid.
+    valid : ndarray of bool
+        False at nodata, masked, NaN and infinite cells.
+    """
+    from rasterio.windows import Window
+
+    def read():
+        with _open(info.path) as ds:
+            return ds.read(list(info.bands), masked=True,
+                           window=Window(col0, row0, col1 - col0, row1 - row0))
+
+    return _to_values(_guard(info.path, read), info.bands)
+
+
+def read_raster(path: str | os.PathLike, settings: ExtractionSettings | None = None) -> RasterData:
+    """Read a whole raster for extraction.
+
+    See :func:`open_raster` for how bands are chosen.  Values become float32
+    (float64 for 32- and 64-bit integers and float64, so that wide ranges
+    keep their precision until the pipeline removes the median); nodata,
+    masked (mask or alpha band), NaN and infinite cells become invalid.
+
+    Parameters
+    ----------
+    path : path-like
+        Any raster GDAL reads (GeoTIFF expected).
+    settings : ExtractionSettings, optional
+
+    Returns
+    -------
+    RasterData
+
+    Raises
+    ------
+    RasterReadError, InputError, SettingsError
+        As :func:`open_raster`; InputError also when no cell is valid.
+    """
+    info = open_raster(path, settings)
+    g = info.georef
+    values, valid = read_window(info, 0, 0, g.height, g.width)
+    if not valid.any():
+        raise InputError(f"{info.path}: no valid cells (everything is nodata, NaN or infinite)")
+    return RasterData(values, valid, g, info.source, info.description)

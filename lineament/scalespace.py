@@ -153,19 +153,29 @@ def dog_response(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, f
     return g_hi
 
 
-def fill_voids(values: np.ndarray, valid: np.ndarray, sigma_px: float) -> np.ndarray:
+def fill_voids(values: np.ndarray, valid: np.ndarray, sigma_rc: tuple[float, float], *,
+               truncate: float = 4.0) -> np.ndarray:
     """Fill invalid cells by normalised convolution (Knutsson and Westin 1993).
 
     ``filled = G * (f w) / G * w`` with ``w`` the validity mask and ``G`` a
-    Gaussian of ``sigma_px``; cells the kernel does not reach are filled at
-    doubled sigmas until none is left.  Valid cells keep their values.
+    Gaussian of ``sigma_rc`` cut at ``truncate`` sigmas.  Valid cells keep
+    their values.  Cells the kernel does not reach from any valid cell (deep
+    inside a large void, where ``G * w`` < 1e-3) become 0, the raster's
+    centring value; they lie more than about 3.7 sigma inside the void, out
+    of reach of any response that is kept (crossings closer than 3 sigma to a
+    void are dropped and kernels reach 4 sigma).  Everything depends only on
+    cells within ``truncate`` sigmas, so tiles give the same result as the
+    whole raster.
 
     Parameters
     ----------
     values : ndarray, shape (rows, cols), float32
+        Centred values (any value at invalid cells).
     valid : ndarray of bool, same shape
-    sigma_px : float
-        First filling scale in pixels.
+    sigma_rc : (float, float)
+        Filling scale along rows and columns, pixels.
+    truncate : float
+        Kernel half-width in sigmas.
 
     Returns
     -------
@@ -173,20 +183,11 @@ def fill_voids(values: np.ndarray, valid: np.ndarray, sigma_px: float) -> np.nda
     """
     if valid.all():
         return np.asarray(values, dtype=np.float32)
-    out = np.array(values, dtype=np.float32)
     w = valid.astype(np.float32)
-    fw = np.where(valid, out, 0).astype(np.float32)
-    todo = ~valid
-    sigma = max(float(sigma_px), 1.0)
-    limit = 2 * max(out.shape)
-    while todo.any():
-        num = ndimage.gaussian_filter(fw, sigma, mode="reflect", output=np.float32)
-        den = ndimage.gaussian_filter(w, sigma, mode="reflect", output=np.float32)
-        ok = todo & (den > 1e-3)
-        out[ok] = num[ok] / den[ok]
-        todo &= ~ok
-        if sigma > limit:
-            out[todo] = float(np.mean(values[valid]))
-            break
-        sigma *= 2.0
+    fw = np.where(valid, values, 0).astype(np.float32)
+    num = ndimage.gaussian_filter(fw, sigma_rc, mode="reflect", truncate=truncate, output=np.float32)
+    den = ndimage.gaussian_filter(w, sigma_rc, mode="reflect", truncate=truncate, output=np.float32)
+    out = fw
+    fill = ~valid & (den > 1e-3)
+    out[fill] = num[fill] / den[fill]
     return out

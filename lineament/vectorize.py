@@ -96,7 +96,7 @@ def pieces_to_lines(pieces: Iterable[CrossingPiece], georef: GeoRef, *, toleranc
 
     Parameters
     ----------
-    pieces : iterable of CrossingPiece
+    pieces : iterable of CrossingPiece or (rows, cols, strength) tuples
         Pixel-centre fractional indices and vertex strengths.
     georef : GeoRef
     tolerance_m : float
@@ -116,10 +116,11 @@ def pieces_to_lines(pieces: Iterable[CrossingPiece], georef: GeoRef, *, toleranc
         return []
     xs, ys, strengths = [], [], []
     for p in pieces:
-        x, y = georef.pixel_to_map(p.rows, p.cols)
+        rows, cols, strength = (p.rows, p.cols, p.strength) if isinstance(p, CrossingPiece) else p
+        x, y = georef.pixel_to_map(rows, cols)
         xs.append(x)
         ys.append(y)
-        strengths.append(p.strength)
+        strengths.append(strength)
     # tolerance in CRS units: metres / (metres per unit); for degrees use the pixel ratio
     px_units = min(georef.pixel_size)
     px_m = min(georef.pixel_size_m())

@@ -14,7 +14,7 @@ from shapely.geometry import LineString, shape
 
 from conftest import step_image, utm_georef, write_geotiff
 from lineament import ExtractionSettings, GeoRef, extract_array, extract_file, write_lines
-from lineament.errors import InputError
+from lineament.errors import SettingsError
 from lineament.synthetic import fractal_terrain
 
 
@@ -146,7 +146,7 @@ def test_geographic_raster_and_pixel_coordinates():
     result = extract_array(z, g, ExtractionSettings(scales="40,80"))
     assert result.lines and all(ln.azimuth_deg == pytest.approx(0, abs=1) or ln.azimuth_deg > 179
                                 for ln in result.lines)
-    with pytest.raises(InputError, match="px"):
+    with pytest.raises(SettingsError, match="px"):
         extract_array(z, GeoRef.pixel_grid(n, n), ExtractionSettings(scales="40"))
     plain = extract_array(z, GeoRef.pixel_grid(n, n), ExtractionSettings(scales="2px"))
     assert plain.lines

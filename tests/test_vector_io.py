@@ -40,7 +40,7 @@ def make_result(georef: GeoRef | None = None, n: int = 3, source: str = "dem.tif
         lines.append(Lineament(geom, "edge", "log", 20.0 + i, 2.0, 12.5 + i, 20.25, 612.125 + i,
                                3.5 + i, float("nan") if i == 0 else 2.75 + i, source))
     settings = ExtractionSettings(scales="2px")
-    report = ScaleReport(20.0, 2.0, 0.5, 2.0, 1.0, n, 1836.375)
+    report = ScaleReport(20.0, 2.0, "edge", "log", 0.5, 2.0, 1.0, n, 1836.375)
     return ExtractionResult(lines, g, source, settings, [report], 0.25)
 
 
