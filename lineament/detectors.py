@@ -21,6 +21,7 @@ import numpy as np
 
 from .crossings import noise_gain, step_strength_factor, strength_map
 from .scalespace import dog_response, log_response
+from .errors import SettingsError
 from .settings import DOG_RATIO
 
 
@@ -107,6 +108,20 @@ DETECTORS: dict[str, dict[str, Detector]] = {
 }
 
 
-def detectors_for(settings) -> list[Detector]:
-    """Detectors a run uses, in output order."""
-    return [DETECTORS["edges"][settings.operator]]
+def detectors_for(settings, *, is_image: bool = False) -> list[Detector]:
+    """Detectors a run uses, in output order (edges, valleys, ridges).
+
+    Without ``settings.features``, a DEM gets every family that is
+    available and an image gets edges.
+    """
+    if settings.features is not None:
+        wanted = settings.features
+    else:
+        wanted = ("edges",) if is_image else tuple(f for f in ("edges", "valleys", "ridges") if f in DETECTORS)
+    out = []
+    for feature in wanted:
+        if feature not in DETECTORS:
+            raise SettingsError(f"feature {feature!r} is not available in this version")
+        table = DETECTORS[feature]
+        out.append(table[settings.operator] if feature == "edges" else next(iter(table.values())))
+    return out

@@ -282,57 +282,72 @@ def _thresholds(settings: ExtractionSettings, noise: float) -> Thresholds:
 
 
 # --------------------------------------------------------------------------- execution
-Executor = Callable[[list], list]
+#: ``executor(tasks, on_done) -> results``: runs :func:`run_tile_task` on every task and calls
+#: ``on_done(index, result)`` in the calling process as each one finishes.
+Executor = Callable[..., list]
 
 
-def serial_executor(tasks: list, progress: Callable[[int, int], None] | None = None) -> list:
+def serial_executor(tasks: list, on_done: Callable[[int, object], None] | None = None) -> list:
+    """Run tasks one after the other in this process."""
     out = []
     for k, t in enumerate(tasks):
-        out.append(run_tile_task(t))
-        if progress:
-            progress(k + 1, len(tasks))
+        res = run_tile_task(t)
+        out.append(res)
+        if on_done:
+            on_done(k, res)
     return out
 
 
-def process_executor(workers: int):
+def process_executor(workers: int) -> Executor:
     """Run tasks in ``workers`` local processes; results in task order."""
     from concurrent.futures import ProcessPoolExecutor, as_completed
 
-    def run(tasks: list, progress=None) -> list:
+    def run(tasks: list, on_done=None) -> list:
         if workers <= 1 or len(tasks) <= 1:
-            return serial_executor(tasks, progress)
+            return serial_executor(tasks, on_done)
         out: list = [None] * len(tasks)
-        with ProcessPoolExecutor(max_workers=workers) as pool:
+        with ProcessPoolExecutor(max_workers=min(workers, len(tasks))) as pool:
             futures = {pool.submit(run_tile_task, t): k for k, t in enumerate(tasks)}
-            for done, fut in enumerate(as_completed(futures), 1):
-                out[futures[fut]] = fut.result()
-                if progress:
-                    progress(done, len(tasks))
+            try:
+                for fut in as_completed(futures):
+                    k = futures[fut]
+                    out[k] = fut.result()
+                    if on_done:
+                        on_done(k, out[k])
+            except BaseException:
+                for f in futures:
+                    f.cancel()
+                raise
         return out
 
     return run
 
 
-def dask_executor(address: str):
-    """Run tasks on an existing Dask distributed scheduler; results in task order."""
+def dask_executor(address: str) -> Executor:
+    """Run tasks on an existing Dask distributed scheduler; results in task order.
+
+    The scheduler's workers import :mod:`lineament` and read input files
+    themselves, so they must reach the same paths (shared storage) or URLs.
+    """
     try:
         from dask.distributed import Client, as_completed
     except ImportError:
         raise SettingsError("--cluster needs Dask: pip install 'lineament[cluster]'") from None
 
-    def run(tasks: list, progress=None) -> list:
+    def run(tasks: list, on_done=None) -> list:
         try:
             client = Client(address, timeout="10s")
-        except OSError as exc:
+        except (OSError, TimeoutError) as exc:
             raise SettingsError(f"cannot reach the Dask scheduler at {address} ({exc})") from None
         try:
             futures = client.map(run_tile_task, tasks, pure=False)
             index = {f.key: k for k, f in enumerate(futures)}
             out: list = [None] * len(tasks)
-            for done, fut in enumerate(as_completed(futures), 1):
-                out[index[fut.key]] = fut.result()
-                if progress:
-                    progress(done, len(tasks))
+            for fut in as_completed(futures):
+                k = index[fut.key]
+                out[k] = fut.result()
+                if on_done:
+                    on_done(k, out[k])
             return out
         finally:
             client.close()
@@ -350,7 +365,8 @@ def default_workers() -> int:
 
 
 def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_size: int | None = None,
-                   executor=None, progress: Callable[[int, int], None] | None = None) -> ExtractionResult:
+                   executor=None, progress: Callable[[int, int], None] | None = None,
+                   cache=None) -> ExtractionResult:
     """Extract lineaments from an :class:`ArraySource` or :class:`FileSource`.
 
     Parameters
@@ -363,6 +379,9 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
         ``executor(tasks, progress) -> results``; default serial.
     progress : callable, optional
         Called as ``progress(done, total)`` after each tile.
+    cache : TileCache, optional
+        Where finished tiles are kept, so an interrupted run can resume
+        (see :mod:`lineament.resume`).
 
     Returns
     -------
@@ -376,7 +395,7 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
     executor = executor or serial_executor
     georef, name = source.georef, source.source
     pixel_m, scales = _scale_plans(georef, settings, name)
-    detectors = detectors_for(settings)
+    detectors = detectors_for(settings, is_image=source.is_image)
     halo = _halo(scales, detectors, settings)
 
     # global centring offset and value range, from a tile-independent overview
@@ -398,7 +417,11 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
     # noise level per scale and detector, on fixed blocks
     blocks = spread_sample(tile_grid(georef.shape, NOISE_BLOCK, halo), MAX_NOISE_BLOCKS)
     per_block = MAX_NOISE_SAMPLES // len(blocks)
-    samples = executor([task("noise", b, per_block) for b in blocks], None)
+    samples = None if cache is None else cache.load_noise()
+    if samples is None:
+        samples = executor([task("noise", b, per_block) for b in blocks], None)
+        if cache is not None:
+            cache.save_noise(samples)
     thresholds = {}
     for si in range(len(scales)):
         for di in range(len(detectors)):
@@ -414,7 +437,26 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
                    thresholds)
 
     tiles = tile_grid(georef.shape, tile_size, halo)
-    outputs = executor([task("trace", t) for t in tiles], progress)
+    outputs: list = [None] * len(tiles)
+    if cache is not None:
+        for t in tiles:
+            outputs[t.index] = cache.load_tile(t.index)
+    todo = [t for t in tiles if outputs[t.index] is None]
+    done = len(tiles) - len(todo)
+    if progress:
+        progress(done, len(tiles))
+
+    def on_done(k: int, result: TileOutput) -> None:
+        nonlocal done
+        tile = todo[k]
+        outputs[tile.index] = result
+        if cache is not None:
+            cache.save_tile(tile.index, result)
+        done += 1
+        if progress:
+            progress(done, len(tiles))
+
+    executor([task("trace", t) for t in todo], on_done)
     return _finish(plan, outputs, name, len(tiles), time.perf_counter() - t0)
 
 
@@ -517,7 +559,7 @@ def extract_raster(data: RasterData, settings: ExtractionSettings | None = None,
 
 def extract_file(path: str | os.PathLike, settings: ExtractionSettings | None = None, *,
                  tile_size: int | None = None, workers: int = 1, cluster: str | None = None,
-                 progress: Callable[[int, int], None] | None = None) -> ExtractionResult:
+                 progress: Callable[[int, int], None] | None = None, cache=None) -> ExtractionResult:
     """Read a raster file tile by tile and find its lineaments.
 
     Parameters
@@ -541,5 +583,12 @@ def extract_file(path: str | os.PathLike, settings: ExtractionSettings | None = 
     """
     settings = settings or ExtractionSettings()
     source = FileSource(open_raster(path, settings))
-    executor = dask_executor(cluster) if cluster else process_executor(workers)
-    return run_extraction(source, settings, tile_size=tile_size, executor=executor, progress=progress)
+    return run_extraction(source, settings, tile_size=tile_size, executor=make_executor(workers, cluster),
+                          progress=progress, cache=cache)
+
+
+def make_executor(workers: int = 1, cluster: str | None = None) -> Executor:
+    """Serial, local-process or Dask executor."""
+    if cluster:
+        return dask_executor(cluster)
+    return process_executor(workers) if workers > 1 else serial_executor

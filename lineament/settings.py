@@ -14,6 +14,9 @@ from .errors import SettingsError
 
 OPERATORS = ("log", "dog")
 
+#: Families of lines a run can extract (``kind`` attribute: edge, valley, ridge).
+FEATURES = ("edges", "valleys", "ridges")
+
 #: Ratio of the two Gaussians of the DoG operator (Marr and Hildreth 1980).
 DOG_RATIO = 1.6
 
@@ -109,7 +112,11 @@ class ExtractionSettings:
         Gaussian scales (sigma).  Default 2, 4 and 8 pixels: an octave series
         from the finest scale a grid resolves reliably.
     operator : {"log", "dog"}
-        Laplacian of Gaussian, or difference of Gaussians with ratio 1.6.
+        Laplacian of Gaussian, or difference of Gaussians with ratio 1.6,
+        for the ``edges`` feature.
+    features : tuple of {"edges", "valleys", "ridges"} or None
+        Families of lines to extract.  None: all three on a DEM, edges on
+        an image.
     high_noise_multiple, low_noise_multiple : float
         Hysteresis thresholds as multiples of the robust noise level of the
         response gradient at each scale (used when the absolute thresholds
@@ -145,6 +152,7 @@ class ExtractionSettings:
 
     scales: tuple[Scale, ...] = DEFAULT_SCALES
     operator: str = "log"
+    features: tuple[str, ...] | None = None
     high_noise_multiple: float = 4.0
     low_noise_multiple: float = 2.0
     sustained_noise_multiple: float = 3.0
@@ -163,6 +171,13 @@ class ExtractionSettings:
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "scales", parse_scales(self.scales))
+        if self.features is not None:
+            feats = (self.features.split(",") if isinstance(self.features, str) else list(self.features))
+            feats = tuple(f.strip() for f in feats if f.strip())
+            unknown = [f for f in feats if f not in FEATURES]
+            if unknown or not feats:
+                raise SettingsError(f"features must be some of {', '.join(FEATURES)}, got {self.features!r}")
+            object.__setattr__(self, "features", tuple(f for f in FEATURES if f in feats))
         if self.operator not in OPERATORS:
             raise SettingsError(f"operator must be one of {', '.join(OPERATORS)}, got {self.operator!r}")
         for name in ("high_noise_multiple", "low_noise_multiple", "sustained_noise_multiple",

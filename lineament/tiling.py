@@ -75,6 +75,7 @@ class ArraySource:
     valid: np.ndarray
     georef: GeoRef
     source: str
+    is_image: bool = False
 
     @property
     def reads_in_worker(self) -> bool:
@@ -108,6 +109,11 @@ class FileSource:
     def reads_in_worker(self) -> bool:
         return True
 
+    @property
+    def is_image(self) -> bool:
+        """RGB luminance or 8-bit data is an image; anything else is taken as a DEM."""
+        return len(self.info.bands) == 3 or self.info.dtype == "uint8"
+
     def read(self, window: tuple[int, int, int, int]) -> tuple[np.ndarray, np.ndarray]:
         return read_window(self.info, *window)
 
@@ -128,3 +134,105 @@ class FileSource:
             rows_v.append(v[::step, ::step])
             rows_ok.append(ok[::step, ::step])
         return np.concatenate(rows_v), np.concatenate(rows_ok)
+
+
+@dataclass(frozen=True)
+class MosaicSource:
+    """Several rasters on one pixel grid, read as one raster (a virtual mosaic).
+
+    Cells covered by no input are voids.  Where inputs overlap, the later
+    one in sorted path order wins (they are expected to agree).
+    """
+
+    infos: tuple
+    placements: tuple  # (row offset, col offset) of each input in the mosaic grid
+    georef: GeoRef
+    source: str
+
+    @property
+    def reads_in_worker(self) -> bool:
+        return True
+
+    @property
+    def is_image(self) -> bool:
+        return any(len(i.bands) == 3 or i.dtype == "uint8" for i in self.infos)
+
+    def read(self, window: tuple[int, int, int, int]) -> tuple[np.ndarray, np.ndarray]:
+        r0, c0, r1, c1 = window
+        wide = any(np.dtype(i.dtype).itemsize > 2 and i.dtype != "float32" for i in self.infos)
+        values = np.zeros((r1 - r0, c1 - c0), np.float64 if wide else np.float32)
+        valid = np.zeros((r1 - r0, c1 - c0), bool)
+        for info, (ro, co) in zip(self.infos, self.placements):
+            g = info.georef
+            a0, b0 = max(r0, ro), max(c0, co)
+            a1, b1 = min(r1, ro + g.height), min(c1, co + g.width)
+            if a0 >= a1 or b0 >= b1:
+                continue
+            v, ok = read_window(info, a0 - ro, b0 - co, a1 - ro, b1 - co)
+            dst = (slice(a0 - r0, a1 - r0), slice(b0 - c0, b1 - c0))
+            values[dst] = np.where(ok, v, values[dst])
+            valid[dst] |= ok
+        return values, valid
+
+    def overview(self, max_pixels: int) -> tuple[np.ndarray, np.ndarray]:
+        g = self.georef
+        step = max(1, int(math.ceil(math.sqrt(g.height * g.width / max_pixels))))
+        rows_v, rows_ok = [], []
+        strip = max(step, (4096 // step) * step)
+        for r0 in range(0, g.height, strip):
+            v, ok = self.read((r0, 0, min(g.height, r0 + strip), g.width))
+            rows_v.append(v[::step, ::step])
+            rows_ok.append(ok[::step, ::step])
+        return np.concatenate(rows_v), np.concatenate(rows_ok)
+
+    def source_at(self, row: float, col: float) -> str:
+        """File name of the input covering a mosaic cell (the last one, as in :meth:`read`)."""
+        name = self.infos[0].source
+        for info, (ro, co) in zip(self.infos, self.placements):
+            if ro - 0.5 <= row < ro + info.georef.height - 0.5 and co - 0.5 <= col < co + info.georef.width - 0.5:
+                name = info.source
+        return name
+
+
+def _grid_key(g: GeoRef) -> tuple:
+    """Inputs with equal keys share a pixel grid and can be mosaicked."""
+    t = g.transform
+    crs = None if g.crs is None else g.crs.to_wkt()
+    phase_x = round((t.c / t.a) % 1.0, 6) % 1.0
+    phase_y = round((t.f / t.e) % 1.0, 6) % 1.0
+    return (crs, round(t.a, 9), round(t.e, 9), phase_x, phase_y)
+
+
+def group_inputs(infos: list) -> list:
+    """Group checked inputs into mosaics of a shared CRS and pixel grid.
+
+    Returns a list of sources: a :class:`FileSource` for a lone raster, a
+    :class:`MosaicSource` for several on one grid.  Rotated grids are never
+    mosaicked.  Groups and their members are in sorted path order, so the
+    result does not depend on the order inputs were given in.
+    """
+    from affine import Affine
+
+    infos = sorted(infos, key=lambda i: i.path)
+    groups: dict = {}
+    for info in infos:
+        key = _grid_key(info.georef) if info.georef.is_rectilinear else ("single", info.path)
+        groups.setdefault(key, []).append(info)
+    out = []
+    for members in groups.values():
+        if len(members) == 1:
+            out.append(FileSource(members[0]))
+            continue
+        t0 = members[0].georef.transform
+        a, e = t0.a, t0.e
+        cols0 = [round((m.georef.transform.c - t0.c) / a) for m in members]
+        rows0 = [round((m.georef.transform.f - t0.f) / e) for m in members]
+        cmin, rmin = min(cols0), min(rows0)
+        width = max(c - cmin + m.georef.width for c, m in zip(cols0, members))
+        height = max(r - rmin + m.georef.height for r, m in zip(rows0, members))
+        transform = Affine(a, 0.0, t0.c + cmin * a, 0.0, e, t0.f + rmin * e)
+        g = GeoRef(transform, members[0].georef.crs, height, width)
+        placements = tuple((r - rmin, c - cmin) for r, c in zip(rows0, cols0))
+        name = f"mosaic of {len(members)} rasters"
+        out.append(MosaicSource(tuple(members), placements, g, name))
+    return out

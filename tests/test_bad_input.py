@@ -274,7 +274,7 @@ CASES = [
     Case("empty-file", _empty_file, 3, "empty"),
     Case("truncated-geotiff", _truncated, 3, "cannot read raster.*truncated"),
     Case("corrupt-header", _corrupt_header, 3, "not a raster"),
-    Case("directory", _directory, 3, "is a folder"),
+    Case("empty-folder", _directory, 3, "folder holds no rasters"),  # a folder is a survey of its rasters
     Case("missing-file", _missing, 3, "no such file"),
     Case("no-crs", _no_crs, 3, "no coordinate reference system.*--assume-crs"),
     Case("no-geotransform", _no_geotransform, 3, "no geotransform.*--pixel-coordinates"),

@@ -6,6 +6,7 @@ import contextlib
 import functools
 import logging
 import sys
+import time
 import tomllib
 import traceback
 import warnings
@@ -153,3 +154,33 @@ def load_config(ctx: click.Context, param: click.Parameter, value: str | None):
         defaults[name] = val
     ctx.default_map = {**(ctx.default_map or {}), **defaults}
     return value
+
+
+class Progress:
+    """Tiles done, rate and time left on one line of stderr; silent when stderr is not a terminal."""
+
+    def __init__(self, stream=None) -> None:
+        self.stream = stream or sys.stderr
+        self.active = bool(getattr(self.stream, "isatty", lambda: False)())
+        self.t0 = time.perf_counter()
+        self.start_done: int | None = None
+        self.shown = False
+
+    def __call__(self, done: int, total: int) -> None:
+        if not self.active or total <= 1:
+            return
+        now = time.perf_counter()
+        if self.start_done is None:
+            self.start_done, self.t0 = done, now
+            return
+        rate = (done - self.start_done) / max(now - self.t0, 1e-9)
+        left = (total - done) / rate if rate > 0 else float("nan")
+        left_text = f"{int(left // 60)}:{int(left % 60):02d} left" if left == left else ""
+        self.stream.write(f"\rtiles {done}/{total}  {rate:.2f} tiles/s  {left_text}   ")
+        self.stream.flush()
+        self.shown = True
+
+    def close(self) -> None:
+        if self.shown:
+            self.stream.write("\n")
+            self.stream.flush()

@@ -1,0 +1,165 @@
+"""Tile-by-tile extraction: same lines whatever the tiling, worker count or executor."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import shapely
+from affine import Affine
+
+from conftest import step_image, utm_georef, write_geotiff
+from lineament import ExtractionSettings, extract_array, extract_file
+from lineament.pipeline import serial_executor
+from lineament.resume import TileCache
+from lineament.survey import extract_survey
+from lineament.synthetic import fractal_terrain
+from lineament.tiling import ArraySource, tile_grid
+
+
+def _scene(n=320, seed=3):
+    """Terrain with scarps through tile corners and edges, plus a void."""
+    z = fractal_terrain((n, n), pixel_size_m=10.0, relief_m=15.0, seed=seed)
+    z = z + step_image(n, n, angle_deg=45.0, offset_px=0.0, height_step=25.0, blur_px=1.0)  # through (160, 160)
+    z = z + step_image(n, n, angle_deg=0.0, offset_px=-32.5, height_step=20.0, blur_px=1.0)  # along col 127
+    z = z + step_image(n, n, angle_deg=90.0, offset_px=0.0, height_step=-18.0, blur_px=1.0)
+    valid = np.ones((n, n), bool)
+    valid[40:70, 220:260] = False
+    return z.astype(np.float32), valid, utm_georef(n, n)
+
+
+def _coords(result):
+    return [np.asarray(ln.geometry.coords) for ln in result.lines]
+
+
+def _assert_same_lines(a, b, atol_px=1e-6, pixel=10.0):
+    ca, cb = _coords(a), _coords(b)
+    assert len(ca) == len(cb)
+    for x, y in zip(ca, cb):
+        assert x.shape == y.shape
+        np.testing.assert_allclose(x, y, rtol=0, atol=atol_px * pixel)
+    strip = lambda ln: {k: v for k, v in ln.properties().items() if k != "source"}  # noqa: E731
+    assert [strip(ln) for ln in a.lines] == [strip(ln) for ln in b.lines]
+
+
+@pytest.fixture(scope="module")
+def scene():
+    return _scene()
+
+
+@pytest.fixture(scope="module")
+def whole(scene):
+    z, valid, g = scene
+    return extract_array(z, g, ExtractionSettings(scales="20,40"), valid=valid, tile_size=4096)
+
+
+def test_tile_grid_covers_every_pixel_once():
+    tiles = tile_grid((300, 250), 64, (10, 12))
+    cover = np.zeros((300, 250), int)
+    for t in tiles:
+        cover[t.core.row0:t.core.row1, t.core.col0:t.core.col1] += 1
+        r0, c0, r1, c1 = t.window
+        assert r0 == max(0, t.core.row0 - 10) and c1 == min(250, t.core.col1 + 12)
+    assert (cover == 1).all()
+
+
+@pytest.mark.parametrize("tile_size", [64, 100, 160])
+def test_lines_do_not_depend_on_tile_size(scene, whole, tile_size):
+    # Issue requirement: same count, vertices within 1e-6 px, whether whole or tiled.
+    z, valid, g = scene
+    tiled = extract_array(z, g, ExtractionSettings(scales="20,40"), valid=valid, tile_size=tile_size)
+    assert tiled.tiles > 1 and whole.tiles == 1
+    assert len(whole.lines) >= 3
+    _assert_same_lines(whole, tiled)
+
+
+def test_lines_cross_tile_seams_whole():
+    # a diagonal scarp through the corner shared by four 160-px tiles comes out as one line
+    n = 320
+    g = utm_georef(n, n)
+    z = fractal_terrain((n, n), pixel_size_m=10.0, relief_m=2.0, seed=4)
+    z = (z + step_image(n, n, angle_deg=45.0, offset_px=0.0, height_step=25.0, blur_px=1.0)).astype(np.float32)
+    tiled = extract_array(z, g, ExtractionSettings(scales="20"), tile_size=160)
+    assert tiled.tiles == 4
+    x, y = g.pixel_to_map(np.array([40.0, 280.0]), np.array([40.0, 280.0]))
+    diagonal = shapely.LineString(np.column_stack((x, y)))
+    through = [ln for ln in tiled.lines if ln.geometry.intersection(diagonal.buffer(10)).length > 2000]
+    assert len(through) == 1
+
+
+def test_worker_count_does_not_change_output(scene, whole):
+    z, valid, g = scene
+    parallel = extract_array(z, g, ExtractionSettings(scales="20,40"), valid=valid, tile_size=100, workers=2)
+    _assert_same_lines(whole, parallel)
+
+
+def test_file_tiles_equal_array(tmp_path, scene, whole):
+    z, valid, g = scene
+    tif = write_geotiff(tmp_path / "scene.tif", np.where(valid, z, -9999).astype(np.float32), g, nodata=-9999)
+    from_file = extract_file(tif, ExtractionSettings(scales="20,40"), tile_size=128)
+    _assert_same_lines(whole, from_file)
+    assert {ln.source for ln in from_file.lines} == {"scene.tif"}
+
+
+def test_dask_local_cluster_equals_local_run(tmp_path, scene, whole):
+    distributed = pytest.importorskip("dask.distributed")
+    z, valid, g = scene
+    tif = write_geotiff(tmp_path / "scene.tif", np.where(valid, z, -9999).astype(np.float32), g, nodata=-9999)
+    local = extract_file(tif, ExtractionSettings(scales="20,40"), tile_size=128)
+    # loopback only, two single-threaded worker processes
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                                  dashboard_address=None) as cluster:
+        remote = extract_file(tif, ExtractionSettings(scales="20,40"), tile_size=128, cluster=cluster.scheduler_address)
+    _assert_same_lines(local, remote)
+
+
+def test_two_tile_mosaic_gives_one_line_across_the_seam(tmp_path):
+    # a scarp planted across the seam of two rasters on one grid comes out as one line
+    n = 160
+    g = utm_georef(n, 2 * n)
+    z = 100 + step_image(n, 2 * n, angle_deg=80.0, offset_px=0.3, height_step=20.0, blur_px=1.0)
+    z = z + fractal_terrain((n, 2 * n), pixel_size_m=10.0, relief_m=3.0, seed=9)
+    left = write_geotiff(tmp_path / "a_left.tif", z[:, :n], g.window(0, 0, n, n))
+    right = write_geotiff(tmp_path / "b_right.tif", z[:, n:], g.window(0, n, n, n))
+    results = extract_survey([str(right), str(left)], ExtractionSettings(scales="20"))
+    assert len(results) == 1 and results[0].georef.shape == (n, 2 * n)
+    crossing = [ln for ln in results[0].lines if ln.length_m > 1500]
+    assert len(crossing) == 1
+    xs = np.asarray(crossing[0].geometry.coords)[:, 0]
+    seam_x = g.transform.c + n * 10.0
+    assert xs.min() < seam_x - 300 and xs.max() > seam_x + 300
+    assert {ln.source for ln in results[0].lines} <= {"a_left.tif", "b_right.tif"}
+    whole = extract_array(z.astype(np.float32), g, ExtractionSettings(scales="20"))
+    assert [np.asarray(a.geometry.coords).round(6).tolist() for a in whole.lines] == \
+        [np.asarray(b.geometry.coords).round(6).tolist() for b in results[0].lines]
+
+
+def test_resumed_run_equals_uninterrupted(tmp_path, scene, whole):
+    z, valid, g = scene
+    source = ArraySource(z, valid, g, "array")
+    from lineament.pipeline import run_extraction
+
+    class Interrupt(Exception):
+        pass
+
+    def dying_executor(tasks, on_done=None):
+        # finishes three tiles, then the run is "killed"
+        out = []
+        for k, t in enumerate(tasks):
+            if on_done is not None and k == 3:
+                raise Interrupt
+            out.append(serial_executor([t])[0])
+            if on_done:
+                on_done(k, out[-1])
+        return out
+
+    key = {"test": 1}
+    with pytest.raises(Interrupt):
+        run_extraction(source, ExtractionSettings(scales="20,40"), tile_size=100, executor=dying_executor,
+                       cache=TileCache(tmp_path / "cache", key, resume=False))
+    cache = TileCache(tmp_path / "cache", key, resume=True)
+    resumed = run_extraction(source, ExtractionSettings(scales="20,40"), tile_size=100, cache=cache)
+    assert cache.reused == 3
+    _assert_same_lines(whole, resumed)
+    # a different key starts afresh
+    fresh = TileCache(tmp_path / "cache", {"test": 2}, resume=True)
+    assert not list((tmp_path / "cache").glob("tile_*.npz")) and fresh.reused == 0
