@@ -28,6 +28,8 @@ import numpy as np
 from scipy import ndimage
 from skimage.measure import find_contours
 
+from ._fasttrace import candidate_pixels
+
 #: Consistency factor turning a median absolute deviation into a Gaussian
 #: standard deviation (1 / Phi^-1(3/4); Rousseeuw and Croux 1993).
 MAD_TO_SIGMA = 1.482602218505602
@@ -279,6 +281,11 @@ def trace_level_set(field: np.ndarray, strength: np.ndarray, usable: np.ndarray,
                     offset: tuple[int, int] = (0, 0), core: Core | None = None):
     """Trace the zero level set of ``field`` on one window; keep strong runs.
 
+    Only the cells that can hold a kept or shared run are traced (found with
+    whole-array operations, :func:`lineament._fasttrace.candidate_pixels`);
+    the result is the one a trace of every crossing of the window gives
+    (:func:`trace_level_set_reference`).
+
     Parameters
     ----------
     field, strength : ndarray, shape (rows, cols), float32
@@ -305,6 +312,23 @@ def trace_level_set(field: np.ndarray, strength: np.ndarray, usable: np.ndarray,
         Owned parts of runs that continue into other windows; the rule is
         applied after :func:`stitch_fragments` has joined them.
     """
+    return _trace(field, strength, usable, high=high, low=low, sustained=sustained,
+                  sustained_length_px=sustained_length_px, allowed=allowed, offset=offset, core=core,
+                  select=True)
+
+
+def trace_level_set_reference(field: np.ndarray, strength: np.ndarray, usable: np.ndarray, *,
+                              high: float, low: float, sustained: float | None = None,
+                              sustained_length_px: float = np.inf, allowed: np.ndarray | None = None,
+                              offset: tuple[int, int] = (0, 0), core: Core | None = None):
+    """:func:`trace_level_set` tracing every crossing of the window (slow; for tests and benchmarks)."""
+    return _trace(field, strength, usable, high=high, low=low, sustained=sustained,
+                  sustained_length_px=sustained_length_px, allowed=allowed, offset=offset, core=core,
+                  select=False)
+
+
+def _trace(field, strength, usable, *, high, low, sustained, sustained_length_px, allowed, offset, core,
+           select: bool):
     pieces: list = []
     fragments: list[Fragment] = []
     mask = usable if allowed is None else (usable & allowed)
@@ -313,19 +337,34 @@ def trace_level_set(field: np.ndarray, strength: np.ndarray, usable: np.ndarray,
     h, w = field.shape
     if core is None:
         core = Core(offset[0], offset[1], offset[0] + h, offset[1] + w)
-    for contour in find_contours(field, 0.0):
-        if contour.shape[0] < 2:
-            continue
-        closed = bool(np.array_equal(contour[0], contour[-1])) and contour.shape[0] > 3
-        if closed:
-            contour = contour[:-1]
+    if select:
+        core_local = (core.row0 - offset[0], core.col0 - offset[1], core.row1 - offset[0], core.col1 - offset[1])
+        px = candidate_pixels(field, strength, mask, high=high, low=low, sustained=sustained,
+                              sustained_length_px=sustained_length_px, core_local=core_local)
+        if px is None:
+            return pieces, fragments
+        contours = find_contours(field, 0.0, mask=px)
+    else:
+        contours = find_contours(field, 0.0)
+    contours = [c for c in contours if c.shape[0] >= 2]
+    if not contours:
+        return pieces, fragments
+    # vertex strength and keep flags for all contours at once (same values as one contour at a time)
+    closed_all = [bool(np.array_equal(c[0], c[-1])) and c.shape[0] > 3 for c in contours]
+    contours = [c[:-1] if cl else c for c, cl in zip(contours, closed_all)]
+    sizes = np.array([c.shape[0] for c in contours])
+    bounds = np.concatenate(([0], np.cumsum(sizes)))
+    allv = np.concatenate(contours)
+    s_all = np.maximum(sample_cubic(strength, allv[:, 0], allv[:, 1]), 0.0).astype(np.float32)
+    ri = np.clip(np.rint(allv[:, 0]).astype(np.intp), 0, h - 1)
+    ci = np.clip(np.rint(allv[:, 1]).astype(np.intp), 0, w - 1)
+    keep_all = mask[ri, ci] & (s_all >= low)
+    any_keep = np.add.reduceat(keep_all.astype(np.intp), bounds[:-1]) > 0
+    for k in np.flatnonzero(any_keep):
+        a0, b0 = bounds[k], bounds[k + 1]
+        contour, closed = contours[k], closed_all[k]
         lr, lc = contour[:, 0], contour[:, 1]
-        s = np.maximum(sample_cubic(strength, lr, lc), 0.0).astype(np.float32)
-        ri = np.clip(np.rint(lr).astype(np.intp), 0, h - 1)
-        ci = np.clip(np.rint(lc).astype(np.intp), 0, w - 1)
-        keep = mask[ri, ci] & (s >= low)
-        if not keep.any():
-            continue
+        s, keep = s_all[a0:b0], keep_all[a0:b0]
         rows = lr + offset[0]
         cols = lc + offset[1]
         n = rows.size
