@@ -44,8 +44,51 @@ def _sum_per_line(seg: np.ndarray, first: np.ndarray, last: np.ndarray) -> np.nd
     return np.add.reduceat(np.append(seg, 0.0), first)
 
 
+def _axis_chords(u: np.ndarray, v: np.ndarray, first: np.ndarray, last: np.ndarray):
+    """End points of each line's principal axis in a local planar frame.
+
+    The axis direction is the length-weighted axial mean of the segment
+    directions (doubled angles, Mardia and Jupp 2000), through the
+    length-weighted centroid of the segments; its ends are the extreme
+    projections of the vertices.  For a straight line these are its end
+    points; a short hook at one end barely moves the axis, where it would
+    swing a first-to-last chord.
+
+    Returns
+    -------
+    u0, v0, u1, v1 : ndarray
+        Axis end points per line, ordered along increasing azimuth direction.
+    """
+    du, dv = np.diff(u), np.diff(v)
+    w = np.hypot(du, dv)
+    w[last[:-1]] = 0.0  # joins between consecutive lines
+    theta = np.arctan2(du, dv)
+    c2 = _sum_per_line(w * np.cos(2 * theta), first, last)
+    s2 = _sum_per_line(w * np.sin(2 * theta), first, last)
+    phi = 0.5 * np.arctan2(s2, c2)
+    total = _sum_per_line(w, first, last)
+    total[total == 0] = 1.0
+    mu = 0.5 * (u[:-1] + u[1:])
+    mv = 0.5 * (v[:-1] + v[1:])
+    uc = _sum_per_line(w * mu, first, last) / total
+    vc = _sum_per_line(w * mv, first, last) / total
+    line_of = np.repeat(np.arange(first.size), last - first + 1)
+    sp, cp = np.sin(phi), np.cos(phi)
+    proj = (u - uc[line_of]) * sp[line_of] + (v - vc[line_of]) * cp[line_of]
+    pmin = np.minimum.reduceat(proj, first)
+    pmax = np.maximum.reduceat(proj, first)
+    return uc + pmin * sp, vc + pmin * cp, uc + pmax * sp, vc + pmax * cp
+
+
 def line_measures(xs: list[np.ndarray], ys: list[np.ndarray], georef: GeoRef) -> dict[str, np.ndarray]:
     """Lengths and azimuths of many polylines in map coordinates.
+
+    The azimuth is that of the line's overall direction: the chord of its
+    principal axis (see :func:`_axis_chords`, computed in grid coordinates,
+    or in longitude scaled by the cosine of latitude for a geographic CRS),
+    measured as the geodesic forward azimuth between the axis ends on the
+    ellipsoid and folded into [0, 180).  For a straight line this is the
+    azimuth between its end points.
 
     Parameters
     ----------
@@ -70,15 +113,26 @@ def line_measures(xs: list[np.ndarray], ys: list[np.ndarray], georef: GeoRef) ->
     y = np.concatenate(ys).astype(np.float64)
     first = np.concatenate(([0], np.cumsum(counts)[:-1]))
     last = first + counts - 1
-    grid_az = fold_axial(np.degrees(np.arctan2(x[last] - x[first], y[last] - y[first])))
+    if georef.crs is None or not georef.is_geographic:
+        x0, y0, x1, y1 = _axis_chords(x, y, first, last)
+        grid_az = fold_axial(np.degrees(np.arctan2(x1 - x0, y1 - y0)))
     if georef.crs is None:
         return {"length_m": _sum_per_line(np.hypot(np.diff(x), np.diff(y)), first, last),
                 "azimuth_deg": grid_az, "azimuth_grid_deg": grid_az.copy()}
     lon, lat = _to_lonlat(x, y, georef.crs)
     geod = georef.geod
-    fwd, _, dist = geod.inv(lon[:-1], lat[:-1], lon[1:], lat[1:])
+    _, _, dist = geod.inv(lon[:-1], lat[:-1], lon[1:], lat[1:])
     lengths = _sum_per_line(np.asarray(dist, dtype=np.float64), first, last)
-    az, _, _ = geod.inv(lon[first], lat[first], lon[last], lat[last])
+    if georef.is_geographic:
+        coslat = np.cos(np.radians(np.repeat(0.5 * (lat[first] + lat[last]), counts)))
+        u0, v0, u1, v1 = _axis_chords(lon * coslat, lat, first, last)
+        c = coslat[first]
+        lon0, lat0, lon1, lat1 = u0 / c, v0, u1 / c, v1
+        grid = np.full(n, np.nan)
+    else:
+        lon0, lat0 = _to_lonlat(x0, y0, georef.crs)
+        lon1, lat1 = _to_lonlat(x1, y1, georef.crs)
+        grid = grid_az
+    az, _, _ = geod.inv(lon0, lat0, lon1, lat1)
     true_az = fold_axial(np.asarray(az, dtype=np.float64))
-    grid = np.full(n, np.nan) if georef.is_geographic else grid_az
     return {"length_m": lengths, "azimuth_deg": true_az, "azimuth_grid_deg": grid}

@@ -160,8 +160,15 @@ class ExtractionResult:
 
 
 # --------------------------------------------------------------------------- planning
-def _scale_plans(georef: GeoRef, settings: ExtractionSettings, source: str) -> tuple[tuple[float, float], list[ScalePlan]]:
+def _scale_plans(georef: GeoRef, settings: ExtractionSettings, source: str, *,
+                 size_of: GeoRef | None = None) -> tuple[tuple[float, float], list[ScalePlan]]:
+    """Sigma in pixels per axis for each scale, at the pixel size of ``georef``.
+
+    ``size_of`` is the whole raster, checked against the largest kernel
+    (defaults to ``georef``).
+    """
     pixel_m = georef.pixel_size_m()
+    size_of = size_of or georef
     if georef.crs is None and any(s.unit == "m" for s in settings.scales):
         raise SettingsError(f"{source}: no CRS, so scales must be given in pixels (e.g. 2px,4px)")
     plans = []
@@ -174,8 +181,8 @@ def _scale_plans(georef: GeoRef, settings: ExtractionSettings, source: str) -> t
                             f"least 1 pixel (pixel size {pixel_m[0]:.3g} x {pixel_m[1]:.3g} m)")
     largest = plans[-1].sigma_rc
     need = [2 * settings.void_margin_sigmas * x + 3 for x in largest]
-    if georef.height < need[0] or georef.width < need[1]:
-        raise InputError(f"{source}: raster of {georef.height} x {georef.width} pixels is too small for scale "
+    if size_of.height < need[0] or size_of.width < need[1]:
+        raise InputError(f"{source}: raster of {size_of.height} x {size_of.width} pixels is too small for scale "
                          f"{settings.scales[-1]} (needs at least {math.ceil(need[0])} x {math.ceil(need[1])})")
     return pixel_m, plans
 
@@ -364,19 +371,72 @@ def default_workers() -> int:
         return max(1, os.cpu_count() or 1)
 
 
+#: Geographic rasters are processed in latitude bands within which the east-west pixel size
+#: changes by at most this fraction, so sigma in pixels is right to this tolerance everywhere.
+LATITUDE_BAND_TOLERANCE = 0.01
+#: Geographic rasters reaching closer to a pole than this are refused (pixels degenerate).
+MAX_ABS_LATITUDE = 85.0
+
+
+def latitude_bands(georef: GeoRef, tolerance: float = LATITUDE_BAND_TOLERANCE) -> list[tuple[int, int]]:
+    """Row ranges of a geographic raster within which the pixel size is constant to ``tolerance``.
+
+    East-west ground size is proportional to cos(latitude); over a band of
+    rows its relative change is about tan(latitude) times the band's height
+    in radians.  Bands are fixed by the raster's grid alone (not by tiling).
+    A projected raster is one band.
+
+    Returns
+    -------
+    list of (row0, row1)
+        Half-open, covering all rows, top to bottom.
+    """
+    if not georef.is_geographic:
+        return [(0, georef.height)]
+    t = georef.transform
+    dlat = abs(math.radians(t.e)) if t.e else abs(math.radians(t.d))
+    bands = []
+    r0 = 0
+    while r0 < georef.height:
+        r1 = r0 + 1
+        lat0 = t.f + t.e * r0
+        while r1 < georef.height:
+            lat1 = t.f + t.e * (r1 + 1)
+            worst = max(abs(lat0), abs(lat1))
+            if math.tan(math.radians(worst)) * dlat * (r1 + 1 - r0) > tolerance:
+                break
+            r1 += 1
+        bands.append((r0, r1))
+        r0 = r1
+    return bands
+
+
+def _check_geographic(georef: GeoRef, name: str) -> None:
+    if not georef.is_geographic:
+        return
+    t = georef.transform
+    lats = (t.f, t.f + t.e * georef.height)
+    if max(abs(v) for v in lats) > MAX_ABS_LATITUDE:
+        raise InputError(f"{name}: reaches latitude {max(abs(v) for v in lats):.1f}; east-west pixels "
+                         f"degenerate beyond {MAX_ABS_LATITUDE:g} degrees, so reproject it first (for example "
+                         "to a polar stereographic CRS)")
+    if not georef.is_rectilinear:
+        raise InputError(f"{name}: a rotated grid in a geographic CRS is not supported; reproject it first")
+
+
 def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_size: int | None = None,
                    executor=None, progress: Callable[[int, int], None] | None = None,
                    cache=None) -> ExtractionResult:
-    """Extract lineaments from an :class:`ArraySource` or :class:`FileSource`.
+    """Extract lineaments from an :class:`ArraySource`, :class:`FileSource` or mosaic.
 
     Parameters
     ----------
-    source : ArraySource or FileSource
+    source : ArraySource, FileSource or MosaicSource
     settings : ExtractionSettings, optional
     tile_size : int, optional
         Core size of tiles in pixels (default :data:`~lineament.tiling.DEFAULT_TILE_SIZE`).
     executor : callable, optional
-        ``executor(tasks, progress) -> results``; default serial.
+        ``executor(tasks, on_done) -> results``; default serial.
     progress : callable, optional
         Called as ``progress(done, total)`` after each tile.
     cache : TileCache, optional
@@ -386,6 +446,13 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
     Returns
     -------
     ExtractionResult
+
+    Notes
+    -----
+    A geographic raster is processed in latitude bands (:func:`latitude_bands`)
+    with sigma converted to pixels at each band's central latitude; lines
+    crossing from one band to the next are joined where their ends meet
+    within half a pixel.
     """
     t0 = time.perf_counter()
     settings = settings or ExtractionSettings()
@@ -394,9 +461,15 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
         raise SettingsError(f"tile size must be at least 64 pixels, got {tile_size}")
     executor = executor or serial_executor
     georef, name = source.georef, source.source
-    pixel_m, scales = _scale_plans(georef, settings, name)
+    _check_geographic(georef, name)
     detectors = detectors_for(settings, is_image=source.is_image)
-    halo = _halo(scales, detectors, settings)
+    bands = latitude_bands(georef)
+    band_scales = []
+    for b0, b1 in bands:
+        band_georef = georef.window(b0, 0, b1 - b0, georef.width)
+        pixel_m, scales = _scale_plans(band_georef, settings, name, size_of=georef)
+        band_scales.append((pixel_m, scales))
+    halo = tuple(max(_halo(sc, detectors, settings)[axis] for _, sc in band_scales) for axis in (0, 1))
 
     # global centring offset and value range, from a tile-independent overview
     ov_values, ov_valid = source.overview(OVERVIEW_PIXELS)
@@ -408,90 +481,138 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
     if not math.isfinite(span) or span > float(np.finfo(np.float32).max) / 16:
         raise InputError(f"{name}: values overflow float32 after centring and the z factor")
     rounding_std = 4.0 * float(np.finfo(np.float32).eps) * span
-    plan = RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset, rounding_std)
 
-    def task(kind, tile, per_block=0):
+    def task(kind, plan, tile, per_block=0):
         data = None if source.reads_in_worker else source.read(tile.window)
         return (kind, plan, source, tile, data, per_block)
 
-    # noise level per scale and detector, on fixed blocks
-    blocks = spread_sample(tile_grid(georef.shape, NOISE_BLOCK, halo), MAX_NOISE_BLOCKS)
-    per_block = MAX_NOISE_SAMPLES // len(blocks)
-    samples = None if cache is None else cache.load_noise()
-    if samples is None:
-        samples = executor([task("noise", b, per_block) for b in blocks], None)
-        if cache is not None:
-            cache.save_noise(samples)
-    thresholds = {}
-    for si in range(len(scales)):
-        for di in range(len(detectors)):
-            parts = [s[(si, di)] for s in samples]
-            comps = np.concatenate([p[0] for p in parts])
-            floor, factor = parts[0][1], parts[0][2]
-            robust = 0.0
-            if comps.size:
-                med = np.median(comps)
-                robust = float(MAD_TO_SIGMA * np.median(np.abs(comps - med))) * factor
-            thresholds[(si, di)] = _thresholds(settings, max(robust, floor))
-    plan = RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset, rounding_std,
-                   thresholds)
+    plans, band_tiles = [], []
+    first_index = 0
+    for band_no, ((b0, b1), (pixel_m, scales)) in enumerate(zip(bands, band_scales)):
+        plan = RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset, rounding_std)
+        # noise level per scale and detector, on fixed blocks of this band
+        blocks = spread_sample(tile_grid(georef.shape, NOISE_BLOCK, halo, rows=(b0, b1)), MAX_NOISE_BLOCKS)
+        per_block = MAX_NOISE_SAMPLES // len(blocks)
+        samples = None if cache is None else cache.load_noise(band_no)
+        if samples is None:
+            samples = executor([task("noise", plan, b, per_block) for b in blocks], None)
+            if cache is not None:
+                cache.save_noise(samples, band_no)
+        thresholds = {}
+        for si in range(len(scales)):
+            for di in range(len(detectors)):
+                parts = [smp[(si, di)] for smp in samples]
+                comps = np.concatenate([p[0] for p in parts])
+                floor, factor = parts[0][1], parts[0][2]
+                robust = 0.0
+                if comps.size:
+                    med = np.median(comps)
+                    robust = float(MAD_TO_SIGMA * np.median(np.abs(comps - med))) * factor
+                thresholds[(si, di)] = _thresholds(settings, max(robust, floor))
+        plans.append(RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset,
+                             rounding_std, thresholds))
+        tiles = tile_grid(georef.shape, tile_size, halo, rows=(b0, b1), first_index=first_index)
+        first_index += len(tiles)
+        band_tiles.append(tiles)
 
-    tiles = tile_grid(georef.shape, tile_size, halo)
-    outputs: list = [None] * len(tiles)
+    all_tiles = [(band_no, t) for band_no, tiles in enumerate(band_tiles) for t in tiles]
+    outputs: dict = {}
     if cache is not None:
-        for t in tiles:
-            outputs[t.index] = cache.load_tile(t.index)
-    todo = [t for t in tiles if outputs[t.index] is None]
-    done = len(tiles) - len(todo)
+        for _, t in all_tiles:
+            out = cache.load_tile(t.index)
+            if out is not None:
+                outputs[t.index] = out
+    todo = [(b, t) for b, t in all_tiles if t.index not in outputs]
+    done = len(all_tiles) - len(todo)
     if progress:
-        progress(done, len(tiles))
+        progress(done, len(all_tiles))
 
     def on_done(k: int, result: TileOutput) -> None:
         nonlocal done
-        tile = todo[k]
+        tile = todo[k][1]
         outputs[tile.index] = result
         if cache is not None:
             cache.save_tile(tile.index, result)
         done += 1
         if progress:
-            progress(done, len(tiles))
+            progress(done, len(all_tiles))
 
-    executor([task("trace", t) for t in todo], on_done)
-    return _finish(plan, outputs, name, len(tiles), time.perf_counter() - t0)
+    executor([task("trace", plans[b], t) for b, t in todo], on_done)
+    band_outputs = [[outputs[t.index] for t in tiles] for tiles in band_tiles]
+    return _finish(plans, bands, band_outputs, name, len(all_tiles), time.perf_counter() - t0)
 
 
-def _finish(plan: RunPlan, outputs: list[TileOutput], name: str, n_tiles: int, seconds: float) -> ExtractionResult:
-    s = plan.settings
+def _join_band_seams(frags: list[tuple[int, Fragment]], bands: list[tuple[int, int]]) -> list[Fragment]:
+    """Make fragments that meet at a latitude-band seam share their meeting vertex exactly.
+
+    Bands use slightly different sigmas in pixels, so a line crossing a
+    seam ends in one band a small distance from where it starts in the next.
+    Open ends within half a pixel of each other across a seam are joined by
+    moving the later fragment's first vertex onto the earlier one's last.
+    """
+    from scipy.spatial import cKDTree
+
+    if len(bands) == 1:
+        return [f for _, f in frags]
+    out = [f for _, f in frags]
+    ends = [(k, f) for k, (b, f) in enumerate(frags) if f.end_open]
+    starts = [(k, f) for k, (b, f) in enumerate(frags) if f.start_open]
+    if not ends or not starts:
+        return out
+    start_xy = np.array([(f.rows[0], f.cols[0]) for _, f in starts])
+    tree = cKDTree(start_xy)
+    taken = set()
+    for k, f in ends:
+        d, j = tree.query((f.rows[-1], f.cols[-1]))
+        kk, g = starts[j]
+        if d == 0 or d > 0.5 or kk in taken or frags[kk][0] == frags[k][0]:
+            continue
+        taken.add(kk)
+        rows, cols = g.rows.copy(), g.cols.copy()
+        rows[0], cols[0] = f.rows[-1], f.cols[-1]
+        out[kk] = Fragment(rows, cols, g.strength, g.start_open, g.end_open)
+    return out
+
+
+def _finish(plans: list[RunPlan], bands: list[tuple[int, int]], band_outputs: list[list[TileOutput]],
+            name: str, n_tiles: int, seconds: float) -> ExtractionResult:
+    plan0 = plans[0]
+    s = plan0.settings
     groups: dict = {}
-    for out in outputs:
-        for si, di, r, c, st in out.pieces:
-            groups.setdefault((si, di), []).append((r, c, st))
     frags: dict = {}
-    for out in outputs:
-        for si, di, fr in out.fragments:
-            frags.setdefault((si, di), []).append(fr)
+    for band_no, outputs in enumerate(band_outputs):
+        for out in outputs:
+            for si, di, r, c, st in out.pieces:
+                groups.setdefault((si, di), []).append((r, c, st))
+            for si, di, fr in out.fragments:
+                frags.setdefault((si, di), []).append((band_no, fr))
     for key, fl in frags.items():
-        th = plan.thresholds[key]
-        sp = plan.scales[key[0]]
-        for r, c, st, _closed in stitch_fragments(fl):
+        # thresholds of the band where a joined run starts decide (bands differ by < 1 % in sigma)
+        for r, c, st, _closed in stitch_fragments(_join_band_seams(fl, bands)):
+            band_no = next((k for k, (b0, b1) in enumerate(bands) if b0 - 0.5 <= r[0] < b1 - 0.5), 0)
+            th = plans[band_no].thresholds[key]
+            sp = plans[band_no].scales[key[0]]
             if keep_run(r, c, st, high=th.high, sustained=th.sustained,
                         sustained_length_px=s.min_length_sigmas * min(sp.sigma_rc)):
                 groups.setdefault(key, []).append((r, c, st))
     lines: list[Lineament] = []
     reports: list[ScaleReport] = []
-    tol = s.simplify_tolerance_m if s.simplify_tolerance_m is not None else 0.5 * min(plan.pixel_m)
-    for si, sp in enumerate(plan.scales):
-        for di, det in enumerate(plan.detectors):
-            th = plan.thresholds[(si, di)]
+    pixel_m = tuple(float(np.mean([p.pixel_m[a] for p in plans])) for a in (0, 1))
+    tol = s.simplify_tolerance_m if s.simplify_tolerance_m is not None else 0.5 * min(pixel_m)
+    for si, sp in enumerate(plan0.scales):
+        scale_px = float(np.mean([p.scales[si].scale_px for p in plans]))
+        for di, det in enumerate(plan0.detectors):
+            ths = [p.thresholds[(si, di)] for p in plans]
+            noise, high, low = (float(np.mean([getattr(t, a) for t in ths])) for a in ("noise", "high", "low"))
             pieces = sorted(groups.get((si, di), []), key=lambda p: (float(p[0][0]), float(p[1][0])))
             min_len = s.min_length_m if s.min_length_m is not None else s.min_length_sigmas * sp.sigma_m
-            found = pieces_to_lines(pieces, plan.georef, tolerance_m=tol, min_length_m=min_len,
-                                    attributes={"scale_m": sp.sigma_m, "scale_px": sp.scale_px,
+            found = pieces_to_lines(pieces, plan0.georef, tolerance_m=tol, min_length_m=min_len,
+                                    attributes={"scale_m": sp.sigma_m, "scale_px": scale_px,
                                                 "operator": det.operator, "kind": det.kind, "source": name})
             lines.extend(found)
-            reports.append(ScaleReport(sp.sigma_m, sp.scale_px, det.kind, det.operator, th.noise, th.high, th.low,
+            reports.append(ScaleReport(sp.sigma_m, scale_px, det.kind, det.operator, noise, high, low,
                                        len(found), float(sum(f.length_m for f in found))))
-    return ExtractionResult(lines, plan.georef, name, s, reports, seconds, n_tiles)
+    return ExtractionResult(lines, plan0.georef, name, s, reports, seconds, n_tiles)
 
 
 # --------------------------------------------------------------------------- public API

@@ -78,17 +78,17 @@ class TileCache:
         self.reused = 0
 
     # -------------------------------------------------------------- noise
-    def save_noise(self, samples: list[dict]) -> None:
+    def save_noise(self, samples: list[dict], band: int = 0) -> None:
         arrays = {}
         for b, block in enumerate(samples):
             for (si, di), (comps, floor, factor) in block.items():
                 arrays[f"b{b}_s{si}_d{di}"] = comps
                 arrays[f"b{b}_s{si}_d{di}_meta"] = np.array([floor, factor])
         arrays["blocks"] = np.array([len(samples)])
-        _atomic_savez(self.folder / "noise.npz", **arrays)
+        _atomic_savez(self.folder / f"noise_{band}.npz", **arrays)
 
-    def load_noise(self) -> list[dict] | None:
-        path = self.folder / "noise.npz"
+    def load_noise(self, band: int = 0) -> list[dict] | None:
+        path = self.folder / f"noise_{band}.npz"
         if not path.exists():
             return None
         try:

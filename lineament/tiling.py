@@ -40,19 +40,32 @@ class Tile:
         return (r0 == 0, r1 == shape[0], c0 == 0, c1 == shape[1])
 
 
-def tile_grid(shape: tuple[int, int], tile_size: int, halo: tuple[int, int]) -> list[Tile]:
+def tile_grid(shape: tuple[int, int], tile_size: int, halo: tuple[int, int], *,
+              rows: tuple[int, int] | None = None, first_index: int = 0) -> list[Tile]:
     """Cores of ``tile_size`` pixels covering ``shape``, with windows grown by ``halo``.
 
-    Tiles are numbered row by row from the top-left.
+    Parameters
+    ----------
+    shape : (int, int)
+        Raster shape; windows are clipped to it.
+    tile_size : int
+        Core size in pixels.
+    halo : (int, int)
+        Extra rows and columns read around each core.
+    rows : (int, int), optional
+        Only cover these rows (a latitude band); the cores start at its first row.
+    first_index : int
+        Number of the first tile.  Tiles are numbered row by row from the top-left.
     """
     if tile_size < 1:
         raise ValueError("tile_size must be at least 1")
     h, w = shape
+    row_start, row_stop = rows if rows is not None else (0, h)
     tiles = []
-    k = 0
-    for r0 in range(0, h, tile_size):
+    k = first_index
+    for r0 in range(row_start, row_stop, tile_size):
         for c0 in range(0, w, tile_size):
-            r1, c1 = min(r0 + tile_size, h), min(c0 + tile_size, w)
+            r1, c1 = min(r0 + tile_size, row_stop), min(c0 + tile_size, w)
             window = (max(0, r0 - halo[0]), max(0, c0 - halo[1]), min(h, r1 + halo[0]), min(w, c1 + halo[1]))
             tiles.append(Tile(k, Core(r0, c0, r1, c1), window))
             k += 1

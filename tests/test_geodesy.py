@@ -37,13 +37,15 @@ def test_projected_lines_match_geod_inv():
 
 def test_geographic_lines_are_geodesic():
     g = GeoRef(Affine(1 / 3600, 0, 10, 0, -1 / 3600, 61), CRS.from_epsg(4326), 100, 100)
-    lon = np.array([10.0, 10.2, 10.4])
-    lat = np.array([60.0, 60.1, 60.15])
-    m = line_measures([lon], [lat], g)
     geod = Geod(ellps="WGS84")
+    # vertices along one geodesic (pyproj.Geod.npts), so its overall direction is the end-point azimuth
+    mid = geod.npts(10.0, 60.0, 10.4, 60.15, 3)
+    lon = np.array([10.0] + [p[0] for p in mid] + [10.4])
+    lat = np.array([60.0] + [p[1] for p in mid] + [60.15])
+    m = line_measures([lon], [lat], g)
     assert m["length_m"][0] == pytest.approx(geod.line_length(lon, lat), rel=1e-9)
     az, _, _ = geod.inv(lon[0], lat[0], lon[-1], lat[-1])
-    assert m["azimuth_deg"][0] == pytest.approx(az % 180, abs=1e-6)
+    assert m["azimuth_deg"][0] == pytest.approx(az % 180, abs=0.01)
     assert np.isnan(m["azimuth_grid_deg"][0])
 
 
@@ -51,4 +53,17 @@ def test_without_crs_lengths_are_planar():
     g = GeoRef.pixel_grid(10, 10)
     m = line_measures([np.array([0.0, 3.0, 3.0])], [np.array([0.0, 4.0, 0.0])], g)
     assert m["length_m"][0] == pytest.approx(9.0)
-    assert m["azimuth_deg"][0] == pytest.approx(90.0)
+
+
+def test_overall_direction_ignores_a_short_hook():
+    # A 1000 m line running north-east with a 60 m hook at its end: the overall direction is that
+    # of the long part (length-weighted axial mean of segment directions, Mardia and Jupp 2000),
+    # where a first-to-last chord would swing by atan(60 / 1000) = 3.4 degrees (analytic).
+    g = utm_georef(10, 10)
+    d = 1000 / np.sqrt(2)
+    x = np.array([500000.0, 500000.0 + d, 500000.0 + d + 60 / np.sqrt(2)])
+    y = np.array([5200000.0, 5200000.0 + d, 5200000.0 + d - 60 / np.sqrt(2)])
+    m = line_measures([x], [y], g)
+    assert m["azimuth_grid_deg"][0] == pytest.approx(45.0, abs=0.5)
+    chord = np.degrees(np.arctan2(x[-1] - x[0], y[-1] - y[0]))
+    assert abs(chord - 45.0) > 3.0

@@ -85,7 +85,8 @@ def test_gpkg_keeps_crs_attributes_and_run_metadata(tmp_path, scarp_raster):
     assert props["source"] == "scarp.tif"
     assert props["length_m"] == pytest.approx(shape(feats[0]["geometry"]).length, rel=2e-3)  # UTM scale ~0.9996
     assert meta["version"] and meta["settings"]["operator"] == "log"
-    assert len(meta["scales"]) == 3 and all(s["high_threshold"] > 0 for s in meta["scales"])
+    edges = [s for s in meta["scales"] if s["kind"] == "edge"]
+    assert len(edges) == 3 and all(s["high_threshold"] > 0 for s in meta["scales"])
 
 
 def test_void_edges_produce_no_lines():
