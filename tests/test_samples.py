@@ -24,7 +24,7 @@ def test_every_long_scarp_is_found(faulted):
     result, truth, props = faulted
     pixel = 10.0
     largest_sigma = max(s.scale_m for s in result.scales)
-    detected = [ln.geometry for ln in result.lines]
+    detected = [ln.geometry for ln in result.lines if ln.kind == "edge"]  # scarps are edges
     for geom, p in zip(truth, props):
         if p["kind"] != "scarp" or geom.length < 20 * largest_sigma:
             continue
@@ -34,24 +34,27 @@ def test_every_long_scarp_is_found(faulted):
 
 
 def test_written_length_lies_near_planted_features(faulted):
-    # "Near": within 1.5 px plus half the line's sigma of a planted scarp (a coarse scale
-    # localises to a fraction of its sigma), or within the flank offset of a valley or ridge: the
-    # LoG of a Gaussian profile of width w crosses zero at sqrt(w^2 + sigma^2) from its axis
-    # (analytic, second derivative of a Gaussian), plus 20 %.
+    # "Near" for an edge line: within 1.5 px plus half the line's sigma of a planted scarp (a
+    # coarse scale localises to a fraction of its sigma), or within the flank offset of a valley
+    # or ridge: the LoG of a Gaussian profile of width w crosses zero at sqrt(w^2 + sigma^2) from
+    # its axis (analytic, second derivative of a Gaussian), plus 20 %.  For a valley or ridge
+    # line: within 1.5 px plus half its sigma of a planted feature of the same kind (its axis).
     result, truth, props = faulted
     near_len = total = 0.0
     for sigma in sorted({ln.scale_m for ln in result.lines}):
-        zones = []
+        zones = {}
         for geom, p in zip(truth, props):
             b = 15.0 + 0.5 * sigma
+            edge_b = b + (1.2 * np.hypot(p["width_m"], sigma) if p["kind"] in ("valley", "ridge") else 0.0)
+            zones.setdefault("edge", []).append(geom.buffer(edge_b))
             if p["kind"] in ("valley", "ridge"):
-                b += 1.2 * np.hypot(p["width_m"], sigma)
-            zones.append(geom.buffer(b))
-        zone = unary_union(zones)
+                zones.setdefault(p["kind"], []).append(geom.buffer(b))
+        zone = {kind: unary_union(z) for kind, z in zones.items()}
         for ln in result.lines:
             if ln.scale_m == sigma:
                 total += ln.geometry.length
-                near_len += ln.geometry.intersection(zone).length
+                if ln.kind in zone:
+                    near_len += ln.geometry.intersection(zone[ln.kind]).length
     assert total > 0
     assert near_len / total >= 0.85
 
@@ -62,3 +65,37 @@ def test_plain_terrain_stays_quiet():
     g = result.georef
     area_km2 = g.height * g.width * np.prod(g.pixel_size_m()) / 1e6
     assert result.total_length_m / 1000.0 / area_km2 <= 0.1
+
+
+def test_field_tiles_form_one_layer_with_lines_whole_across_seams():
+    # The 2 x 2 aerial tiles share one pixel grid: as a survey they are one mosaic, and the lines
+    # equal those of the same image processed as one array (so nothing breaks at the seams).
+    from lineament import extract_array
+    from lineament.survey import extract_survey
+    from lineament.raster_io import read_raster
+
+    paths = sorted(str(p) for p in SAMPLES.glob("fields_r?c?.tif"))
+    assert len(paths) == 4
+    from lineament import ExtractionSettings
+
+    edges = ExtractionSettings(features=("edges",))  # what an image gets by default
+    results = extract_survey(paths, edges, tile_size=256)
+    assert len(results) == 1
+    survey = results[0]
+    assert survey.georef.shape == (768, 768)
+    parts = {p: read_raster(p) for p in paths}
+    mosaic = np.zeros((768, 768), np.float32)
+    for p, data in parts.items():
+        r0, c0 = (int(round(v)) for v in survey.georef.map_to_pixel(*data.georef.pixel_to_map(0, 0)))
+        mosaic[r0:r0 + 384, c0:c0 + 384] = data.values
+    whole = extract_array(mosaic, survey.georef, edges, tile_size=4096)
+    assert len(whole.lines) == len(survey.lines) > 20
+    for a, b in zip(whole.lines, survey.lines):
+        np.testing.assert_allclose(np.asarray(a.geometry.coords), np.asarray(b.geometry.coords), atol=1e-6)
+    assert {ln.source for ln in survey.lines} == {p.rsplit("/", 1)[-1] for p in paths}
+    # drains planted across the seams come out as single lines crossing them
+    truth, props, _ = read_lines(SAMPLES / "fields_truth.gpkg")
+    seam_x = survey.georef.pixel_to_map(0, 383.5)[0]
+    crossing = [ln for ln in survey.lines
+                if min(ln.geometry.coords)[0] < seam_x - 20 and max(ln.geometry.coords)[0] > seam_x + 20]
+    assert crossing

@@ -34,7 +34,6 @@ import numpy as np
 import shapely
 from affine import Affine
 from pyproj import CRS
-from scipy.signal import oaconvolve
 
 from ..errors import InputError, OutputError, SettingsError
 from ..georef import GeoRef
@@ -239,6 +238,7 @@ def _smooth(padded: np.ndarray, kernel: np.ndarray, georef: GeoRef) -> np.ndarra
     """Disc sum divided by the disc footprint area (km^2), float32 (H, W)."""
     if not padded.any():
         return np.zeros(georef.shape, dtype=np.float32)
+    from scipy.signal import oaconvolve  # imported here: scipy.signal is slow to import
     total = oaconvolve(padded, kernel, mode="valid")
     total[total < 1e-9 * total.max()] = 0.0  # FFT round-off where there is nothing
     area = kernel.sum() * _row_cell_area_km2(georef)
