@@ -239,11 +239,15 @@ def _window_level_sets(plan: RunPlan, values: np.ndarray, valid: np.ndarray, edg
 
 def _noise_samples(plan: RunPlan, tile: Tile, values, valid, per_block: int) -> dict:
     """Noise components at usable core cells of one block, subsampled on a fixed lattice."""
+    return _noise_from(_window_level_sets(plan, values, valid, tile.edges(plan.georef.shape)), tile, per_block)
+
+
+def _noise_from(level_sets, tile: Tile, per_block: int) -> dict:
     r0, c0 = tile.offset
     core = tile.core
     sl = (slice(core.row0 - r0, core.row1 - r0), slice(core.col0 - c0, core.col1 - c0))
     out: dict = {}
-    for si, di, ls, usable in _window_level_sets(plan, values, valid, tile.edges(plan.georef.shape)):
+    for si, di, ls, usable in level_sets:
         ok = usable[sl]
         if ls.allowed is not None:
             ok = ok & ls.allowed[sl]
@@ -257,8 +261,12 @@ def _noise_samples(plan: RunPlan, tile: Tile, values, valid, per_block: int) -> 
 
 
 def _trace_tile(plan: RunPlan, tile: Tile, values, valid) -> TileOutput:
+    return _trace_from(plan, _window_level_sets(plan, values, valid, tile.edges(plan.georef.shape)), tile)
+
+
+def _trace_from(plan: RunPlan, level_sets, tile: Tile) -> TileOutput:
     pieces, fragments = [], []
-    for si, di, ls, usable in _window_level_sets(plan, values, valid, tile.edges(plan.georef.shape)):
+    for si, di, ls, usable in level_sets:
         th = plan.thresholds[(si, di)]
         sp = plan.scales[si]
         p, f = trace_level_set(ls.field, ls.strength, usable, high=th.high, low=th.low, sustained=th.sustained,
@@ -493,11 +501,24 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
         # noise level per scale and detector, on fixed blocks of this band
         blocks = spread_sample(tile_grid(georef.shape, NOISE_BLOCK, halo, rows=(b0, b1)), MAX_NOISE_BLOCKS)
         per_block = MAX_NOISE_SAMPLES // len(blocks)
+        tiles = tile_grid(georef.shape, tile_size, halo, rows=(b0, b1), first_index=first_index)
+        single = (len(bands) == 1 and len(blocks) == 1 and len(tiles) == 1 and blocks[0].window == tiles[0].window
+                  and blocks[0].core == tiles[0].core)
         samples = None if cache is None else cache.load_noise(band_no)
-        if samples is None:
+        if single and samples is None:
+            # one window holds the whole raster: filter it once for both the noise level and the lines
+            values, valid = source.read(tiles[0].window)
+            level_sets = list(_window_level_sets(plan, values, valid, tiles[0].edges(georef.shape)))
+            samples = [_noise_from(level_sets, blocks[0], per_block)]
+            if cache is not None:
+                cache.save_noise(samples, band_no)
+        elif samples is None:
+            single = False
             samples = executor([task("noise", plan, b, per_block) for b in blocks], None)
             if cache is not None:
                 cache.save_noise(samples, band_no)
+        else:
+            single = False
         thresholds = {}
         for si in range(len(scales)):
             for di in range(len(detectors)):
@@ -511,7 +532,12 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
                 thresholds[(si, di)] = _thresholds(settings, max(robust, floor))
         plans.append(RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset,
                              rounding_std, thresholds))
-        tiles = tile_grid(georef.shape, tile_size, halo, rows=(b0, b1), first_index=first_index)
+        if single:
+            out = _trace_from(plans[-1], level_sets, tiles[0])
+            del level_sets
+            if progress:
+                progress(1, 1)
+            return _finish(plans, bands, [[out]], name, 1, time.perf_counter() - t0)
         first_index += len(tiles)
         band_tiles.append(tiles)
 
