@@ -80,6 +80,23 @@ def spread_sample(tiles: list[Tile], count: int) -> list[Tile]:
     return [tiles[i] for i in idx]
 
 
+def strided_overview(read, georef: GeoRef, max_pixels: int) -> tuple[np.ndarray, np.ndarray]:
+    """Every k-th row and column of a raster (at most about ``max_pixels`` cells), read in strips.
+
+    The whole raster when it is small enough; strips keep memory bounded.
+    """
+    step = max(1, int(math.ceil(math.sqrt(georef.height * georef.width / max_pixels))))
+    if step == 1:
+        return read((0, 0, georef.height, georef.width))
+    rows_v, rows_ok = [], []
+    strip = max(step, (4096 // step) * step)
+    for r0 in range(0, georef.height, strip):
+        v, ok = read((r0, 0, min(georef.height, r0 + strip), georef.width))
+        rows_v.append(v[::step, ::step])
+        rows_ok.append(ok[::step, ::step])
+    return np.concatenate(rows_v), np.concatenate(rows_ok)
+
+
 @dataclass(frozen=True)
 class ArraySource:
     """An in-memory raster: values, validity and georeferencing."""
@@ -131,22 +148,8 @@ class FileSource:
         return read_window(self.info, *window)
 
     def overview(self, max_pixels: int) -> tuple[np.ndarray, np.ndarray]:
-        """Values and validity on a regular subsample of at most about ``max_pixels`` cells.
-
-        The whole raster when it is small enough; otherwise every k-th row
-        and column, read strip by strip so memory stays bounded.
-        """
-        g = self.georef
-        step = max(1, int(math.ceil(math.sqrt(g.height * g.width / max_pixels))))
-        if step == 1:
-            return self.read((0, 0, g.height, g.width))
-        rows_v, rows_ok = [], []
-        strip = max(step, (4096 // step) * step)
-        for r0 in range(0, g.height, strip):
-            v, ok = self.read((r0, 0, min(g.height, r0 + strip), g.width))
-            rows_v.append(v[::step, ::step])
-            rows_ok.append(ok[::step, ::step])
-        return np.concatenate(rows_v), np.concatenate(rows_ok)
+        """Values and validity on a regular subsample (see :func:`strided_overview`)."""
+        return strided_overview(self.read, self.georef, max_pixels)
 
 
 @dataclass(frozen=True)
@@ -188,15 +191,7 @@ class MosaicSource:
         return values, valid
 
     def overview(self, max_pixels: int) -> tuple[np.ndarray, np.ndarray]:
-        g = self.georef
-        step = max(1, int(math.ceil(math.sqrt(g.height * g.width / max_pixels))))
-        rows_v, rows_ok = [], []
-        strip = max(step, (4096 // step) * step)
-        for r0 in range(0, g.height, strip):
-            v, ok = self.read((r0, 0, min(g.height, r0 + strip), g.width))
-            rows_v.append(v[::step, ::step])
-            rows_ok.append(ok[::step, ::step])
-        return np.concatenate(rows_v), np.concatenate(rows_ok)
+        return strided_overview(self.read, self.georef, max_pixels)
 
     def source_at(self, row: float, col: float) -> str:
         """File name of the input covering a mosaic cell (the last one, as in :meth:`read`)."""

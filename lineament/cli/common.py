@@ -184,3 +184,20 @@ class Progress:
         if self.shown:
             self.stream.write("\n")
             self.stream.flush()
+
+
+def run_options(overwrite_help: str = "Replace an existing output."):
+    """The options every command shares: --overwrite, --config, -q/--quiet, --debug."""
+
+    def decorate(func):
+        for option in reversed((
+            click.option("--overwrite", is_flag=True, help=overwrite_help),
+            click.option("--config", type=click.Path(), callback=load_config, is_eager=True, expose_value=False,
+                         help="Read options from a TOML file (command-line options win)."),
+            click.option("-q", "--quiet", is_flag=True, help="Print only errors."),
+            click.option("--debug", is_flag=True, help="Show the full traceback on errors."),
+        )):
+            func = option(func)
+        return func
+
+    return decorate

@@ -14,7 +14,7 @@ from ..analysis.layers import metric_crs_for, reproject_lines
 from ..errors import InputError, SettingsError
 from ..interpret import read_line_layer
 from ..report import _atomic_write_bytes, check_file_output
-from .common import handle_errors, load_config
+from .common import handle_errors, run_options
 
 
 def _metric_frame(det_geoms, det_crs: CRS, ref_crs: CRS) -> CRS:
@@ -68,11 +68,7 @@ def compare_files(lines_path, reference_path, *, buffer_m: float, angle_deg: flo
               help="Write the results as JSON, to PATH or (without a value, or -) to standard output.")
 @click.option("--assume-reference-crs", default=None, metavar="CRS",
               help="CRS of a reference layer that declares none, e.g. EPSG:32633.")
-@click.option("--overwrite", is_flag=True, help="Replace an existing JSON file.")
-@click.option("--config", type=click.Path(), callback=load_config, is_eager=True,
-              expose_value=False, help="Read options from a TOML file (command-line options win).")
-@click.option("-q", "--quiet", is_flag=True, help="Print only errors.")
-@click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
+@run_options("Replace an existing JSON file.")
 @handle_errors
 def compare(lines_path, reference_path, buffer_m, angle_deg, json_path, assume_reference_crs, overwrite,
             quiet, debug):

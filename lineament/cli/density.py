@@ -14,7 +14,7 @@ from ..errors import InputError, RasterReadError, SettingsError
 from ..georef import GeoRef
 from ..interpret import read_line_layer
 from ..report import check_file_output
-from .common import CAUTION, handle_errors, load_config, warn
+from .common import CAUTION, handle_errors, warn, run_options
 
 
 def grid_of_raster(path: str) -> GeoRef:
@@ -46,11 +46,7 @@ def grid_of_raster(path: str) -> GeoRef:
 @click.option("--radius", type=float, required=True, help="Search radius in metres.")
 @click.option("--intersections", is_flag=True,
               help="Count line intersections per km^2 instead of km of line per km^2.")
-@click.option("--overwrite", is_flag=True, help="Replace an existing output.")
-@click.option("--config", type=click.Path(), callback=load_config, is_eager=True,
-              expose_value=False, help="Read options from a TOML file (command-line options win).")
-@click.option("-q", "--quiet", is_flag=True, help="Print only errors.")
-@click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
+@run_options()
 @handle_errors
 def density(lines_path, output, like, cell_size, radius, intersections, overwrite, quiet, debug):
     """Lineament density: km of line per km^2 within a search radius.

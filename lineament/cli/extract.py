@@ -18,7 +18,7 @@ from ..settings import FEATURES, OPERATORS, ExtractionSettings, parse_scales
 from ..survey import expand_inputs, extract_survey
 from ..tiling import DEFAULT_TILE_SIZE
 from ..vector_io import check_output, write_lines
-from .common import CAUTION, Progress, handle_errors, load_config
+from .common import CAUTION, Progress, handle_errors, run_options
 
 
 _DEFAULTS = ExtractionSettings()
@@ -92,11 +92,7 @@ def _with_option_names(message: str) -> str:
                    "its workers must be able to read the inputs.")
 @click.option("--resume", is_flag=True,
               help="Finish an interrupted run of the same command without redoing finished tiles.")
-@click.option("--overwrite", is_flag=True, help="Replace an existing output.")
-@click.option("--config", type=click.Path(), callback=load_config, is_eager=True,
-              expose_value=False, help="Read options from a TOML file (command-line options win).")
-@click.option("-q", "--quiet", is_flag=True, help="Print only errors.")
-@click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
+@run_options()
 @handle_errors
 def extract(inputs, output, scales, operator, features, band, min_length, simplify, high_threshold,
             low_threshold, high_noise_multiple, low_noise_multiple, z_factor, allow_rotation,

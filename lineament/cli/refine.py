@@ -8,7 +8,7 @@ import click
 
 from ..errors import SettingsError
 from ..interpret import RefineSettings, refine_file
-from .common import CAUTION, handle_errors, load_config
+from .common import CAUTION, handle_errors, run_options
 
 _D = RefineSettings()
 
@@ -43,11 +43,7 @@ _D = RefineSettings()
               help="Write every line with its feature_id instead of one line per feature.")
 @click.option("--min-length-m", type=float, default=None,
               help="Drop output lines shorter than this, in metres. Default: 4 times each line's sigma.")
-@click.option("--overwrite", is_flag=True, help="Replace an existing output.")
-@click.option("--config", type=click.Path(), callback=load_config, is_eager=True,
-              expose_value=False, help="Read options from a TOML file (command-line options win).")
-@click.option("-q", "--quiet", is_flag=True, help="Print only errors.")
-@click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
+@run_options()
 @handle_errors
 def refine(lines_path, output, split, max_bend_deg, max_deviation_m, link, max_gap_m, max_angle_deg,
            max_offset_m, merge_scales, match_distance_m, scale_angle_deg, min_scales, all_lines,

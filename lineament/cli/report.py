@@ -5,7 +5,7 @@ from __future__ import annotations
 import click
 
 from ..report import write_report
-from .common import CAUTION, handle_errors, load_config
+from .common import CAUTION, handle_errors, run_options
 
 
 @click.command("report")
@@ -28,11 +28,7 @@ from .common import CAUTION, handle_errors, load_config
 @click.option("--weight", type=click.Choice(["length", "count"]), default="length", show_default=True,
               help="Rose weighting.")
 @click.option("--title", default=None, help="Page title.")
-@click.option("--overwrite", is_flag=True, help="Replace an existing output.")
-@click.option("--config", type=click.Path(), callback=load_config, is_eager=True,
-              expose_value=False, help="Read options from a TOML file (command-line options win).")
-@click.option("-q", "--quiet", is_flag=True, help="Print only errors.")
-@click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
+@run_options()
 @handle_errors
 def report(lines_path, output, raster, image, colour_by, sun_azimuth_deg, sun_altitude_deg, z_factor,
            bin_width, weight, title, overwrite, quiet, debug):

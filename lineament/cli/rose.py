@@ -10,7 +10,7 @@ from ..analysis.orientation import orientation_sets, plot_rose, rose_bins, write
 from ..errors import InputError
 from ..interpret import read_line_layer
 from ..report import check_file_output, line_measures_of_layer, require_matplotlib
-from .common import handle_errors, load_config
+from .common import handle_errors, run_options
 
 
 def rose_summary_lines(table, sets) -> list[str]:
@@ -45,11 +45,7 @@ def rose_summary_lines(table, sets) -> list[str]:
               help="Bin width in degrees; must divide 180.")
 @click.option("--table", "table_path", type=click.Path(), default=None,
               help="Also write the bin table as .csv or .json.")
-@click.option("--overwrite", is_flag=True, help="Replace existing outputs.")
-@click.option("--config", type=click.Path(), callback=load_config, is_eager=True,
-              expose_value=False, help="Read options from a TOML file (command-line options win).")
-@click.option("-q", "--quiet", is_flag=True, help="Print only errors.")
-@click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
+@run_options("Replace existing outputs.")
 @handle_errors
 def rose(lines_path, output, weight, bin_width, table_path, overwrite, quiet, debug):
     """Rose diagram of lineament directions (axial, 0-180 deg from true north).
