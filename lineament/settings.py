@@ -12,7 +12,7 @@ from dataclasses import asdict, dataclass
 
 from .errors import SettingsError
 
-OPERATORS = ("log", "dog")
+OPERATORS = ("log", "dog", "gradient")
 
 #: Families of lines a run can extract (``kind`` attribute: edge, valley, ridge).
 FEATURES = ("edges", "valleys", "ridges")
