@@ -48,7 +48,8 @@ def write_dem(path: Path, side: int, block: int = 1024, seed: int = 1) -> None:
 
 def run(path: Path, out: Path, args) -> tuple[float, float]:
     cmd = [sys.executable, "-m", "lineament.cli.main", "extract", str(path), "-o", str(out), "-q", "--overwrite",
-           "--scales", args.scales, "--tile-size", str(args.tile_size), "--workers", str(args.workers)]
+           "--scales", args.scales, "--features", args.features, "--tile-size", str(args.tile_size),
+           "--workers", str(args.workers)]
     t0 = time.perf_counter()
     proc = subprocess.Popen(cmd)
     _, status, usage = os.wait4(proc.pid, 0)  # resource usage of this child (and its own children)
@@ -63,13 +64,15 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--sizes", default="16,64,256", help="raster sizes in Mpx, comma-separated")
     ap.add_argument("--scales", default="2px,4px")
+    ap.add_argument("--features", default="edges")
     ap.add_argument("--tile-size", type=int, default=1024)
     ap.add_argument("--workers", type=int, default=1)
     ap.add_argument("--keep", action="store_true", help="keep the written rasters")
     args = ap.parse_args()
     sizes = [int(s) for s in args.sizes.split(",")]
     print(f"machine: {platform.node()} {platform.machine()}, {os.cpu_count()} cores, python {platform.python_version()}")
-    print(f"settings: scales {args.scales}, tile size {args.tile_size}, workers {args.workers}")
+    print(f"settings: scales {args.scales}, features {args.features}, tile size {args.tile_size}, "
+          f"workers {args.workers}")
     print(f"{'Mpx':>6} {'write s':>8} {'extract s':>10} {'Mpx/s':>7} {'peak RSS MB':>12}")
     with tempfile.TemporaryDirectory() as tmp:
         for mpx in sorted(sizes):

@@ -47,7 +47,7 @@ MAX_NOISE_BLOCKS = 64
 #: At most this many samples per noise component, pooled over blocks.
 MAX_NOISE_SAMPLES = 2_000_000
 #: Cells read to find the centring offset and the value range.
-OVERVIEW_PIXELS = 16_000_000
+OVERVIEW_PIXELS = 4_000_000
 
 
 @dataclass(frozen=True)

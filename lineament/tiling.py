@@ -80,16 +80,19 @@ def spread_sample(tiles: list[Tile], count: int) -> list[Tile]:
     return [tiles[i] for i in idx]
 
 
-def strided_overview(read, georef: GeoRef, max_pixels: int) -> tuple[np.ndarray, np.ndarray]:
-    """Every k-th row and column of a raster (at most about ``max_pixels`` cells), read in strips.
+#: Cells read at once by :func:`strided_overview`.
+STRIP_PIXELS = 4_000_000
 
-    The whole raster when it is small enough; strips keep memory bounded.
+
+def strided_overview(read, georef: GeoRef, max_pixels: int) -> tuple[np.ndarray, np.ndarray]:
+    """Every k-th row and column of a raster (at most about ``max_pixels`` cells).
+
+    Read in strips of about :data:`STRIP_PIXELS` cells, so memory stays
+    bounded whatever the raster size.
     """
     step = max(1, int(math.ceil(math.sqrt(georef.height * georef.width / max_pixels))))
-    if step == 1:
-        return read((0, 0, georef.height, georef.width))
     rows_v, rows_ok = [], []
-    strip = max(step, (4096 // step) * step)
+    strip = max(step, (STRIP_PIXELS // max(1, georef.width) // step) * step)
     for r0 in range(0, georef.height, strip):
         v, ok = read((r0, 0, min(georef.height, r0 + strip), georef.width))
         rows_v.append(v[::step, ::step])
