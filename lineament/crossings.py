@@ -402,15 +402,21 @@ def _vertex_key(r: float, c: float) -> tuple[int, int]:
     return (int(round(r * 1e6)), int(round(c * 1e6)))
 
 
-def stitch_fragments(fragments: list[Fragment]) -> list[tuple[np.ndarray, np.ndarray, np.ndarray, bool]]:
+def stitch_fragments(fragments: list[Fragment], *, with_members: bool = False) -> list[tuple]:
     """Join fragments from neighbouring tiles into whole runs.
 
     Fragments meet at a shared vertex (the end of one is the start of the
     next; both tiles compute it identically), matched to 1e-6 px.
 
+    Parameters
+    ----------
+    fragments : list of Fragment
+    with_members : bool
+        Also return the indices of the fragments each run is made of.
+
     Returns
     -------
-    list of (rows, cols, strength, closed)
+    list of (rows, cols, strength, closed) or (rows, cols, strength, closed, members)
         Closed rings start at their smallest vertex and repeat it at the end.
     """
     by_start = {}
@@ -444,7 +450,7 @@ def stitch_fragments(fragments: list[Fragment]) -> list[tuple[np.ndarray, np.nda
             continue
         parts, _ = follow(i)
         r, c, s = join(parts)
-        out.append((r, c, s, False))
+        out.append((r, c, s, False, parts) if with_members else (r, c, s, False))
     for i in order:  # what is left are rings that cross tile edges
         if used[i]:
             continue
@@ -452,7 +458,7 @@ def stitch_fragments(fragments: list[Fragment]) -> list[tuple[np.ndarray, np.nda
         r, c, s = join(parts)
         if closed:
             r, c, s = canonical_ring(r[:-1], c[:-1], s[:-1])
-        out.append((r, c, s, closed))
+        out.append((r, c, s, closed, parts) if with_members else (r, c, s, closed))
     return out
 
 

@@ -102,14 +102,15 @@ class RunPlan:
     offset: float
     rounding_std: float
     thresholds: dict = field(default_factory=dict)  # (scale index, detector index) -> Thresholds
+    search_sigmas: tuple = ()  # scales searched for best_scale_m (metres); empty: not selected
 
 
 @dataclass
 class TileOutput:
     """Pieces a tile owns whole, and fragments that continue into other tiles."""
 
-    pieces: list  # (scale index, detector index, rows, cols, strength)
-    fragments: list  # (scale index, detector index, Fragment)
+    pieces: list  # (scale index, detector index, rows, cols, strength, profile or None)
+    fragments: list  # (scale index, detector index, Fragment, profile or None)
 
 
 @dataclass
@@ -225,7 +226,7 @@ def _usable(valid: np.ndarray, edges: tuple[bool, bool, bool, bool], pixel_m: tu
 
 
 def _window_level_sets(plan: RunPlan, values: np.ndarray, valid: np.ndarray, edges):
-    """Yield (scale index, detector index, LevelSet, usable mask) for one window."""
+    """Yield (scale index, detector index, LevelSet, usable mask, filled window) for one window."""
     s = plan.settings
     arr = _centre(values, valid, plan.offset, s.z_factor)
     dist = _usable(valid, edges, plan.pixel_m)
@@ -234,7 +235,7 @@ def _window_level_sets(plan: RunPlan, values: np.ndarray, valid: np.ndarray, edg
         usable = np.ones(valid.shape, bool) if dist is None else dist > s.void_margin_sigmas * sp.sigma_m
         for di, det in enumerate(plan.detectors):
             ls = det.run(filled, sp.sigma_m, plan.pixel_m, truncate=s.truncate, rounding_std=plan.rounding_std)
-            yield si, di, ls, usable
+            yield si, di, ls, usable, filled
 
 
 def _noise_samples(plan: RunPlan, tile: Tile, values, valid, per_block: int) -> dict:
@@ -247,7 +248,7 @@ def _noise_from(level_sets, tile: Tile, per_block: int) -> dict:
     core = tile.core
     sl = (slice(core.row0 - r0, core.row1 - r0), slice(core.col0 - c0, core.col1 - c0))
     out: dict = {}
-    for si, di, ls, usable in level_sets:
+    for si, di, ls, usable, _ in level_sets:
         ok = usable[sl]
         if ls.allowed is not None:
             ok = ok & ls.allowed[sl]
@@ -264,16 +265,42 @@ def _trace_tile(plan: RunPlan, tile: Tile, values, valid) -> TileOutput:
     return _trace_from(plan, _window_level_sets(plan, values, valid, tile.edges(plan.georef.shape)), tile)
 
 
+def _profile_sum(plan: RunPlan, filled: np.ndarray, tile: Tile, kind: str, rows: np.ndarray, cols: np.ndarray,
+                 skip_first: bool, skip_last: bool) -> np.ndarray | None:
+    """Sum over vertices of the scale-normalised strength at each searched sigma, and the count.
+
+    Sums add up over the fragments of a line (each shared vertex counted
+    once), so the line's mean profile, and the scale where it peaks, do not
+    depend on tiling.
+    """
+    if not plan.search_sigmas:
+        return None
+    from .scale_selection import normalised_strength
+
+    a, b = (1 if skip_first else 0), rows.size - (1 if skip_last else 0)
+    if b <= a:
+        return np.zeros(len(plan.search_sigmas) + 1)
+    r0, c0 = tile.offset
+    prof = normalised_strength(filled, rows[a:b] - r0, cols[a:b] - c0, kind, np.asarray(plan.search_sigmas),
+                               plan.pixel_m, truncate=plan.settings.truncate)
+    return np.append(prof.sum(axis=1), b - a)
+
+
 def _trace_from(plan: RunPlan, level_sets, tile: Tile) -> TileOutput:
     pieces, fragments = [], []
-    for si, di, ls, usable in level_sets:
+    for si, di, ls, usable, filled in level_sets:
         th = plan.thresholds[(si, di)]
         sp = plan.scales[si]
+        kind = plan.detectors[di].kind
         p, f = trace_level_set(ls.field, ls.strength, usable, high=th.high, low=th.low, sustained=th.sustained,
                                sustained_length_px=plan.settings.min_length_sigmas * min(sp.sigma_rc),
                                allowed=ls.allowed, offset=tile.offset, core=tile.core)
-        pieces.extend((si, di, r, c, st) for r, c, st in p)
-        fragments.extend((si, di, fr) for fr in f)
+        for r, c, st in p:
+            ring = r.size > 2 and r[0] == r[-1] and c[0] == c[-1]
+            pieces.append((si, di, r, c, st, _profile_sum(plan, filled, tile, kind, r, c, False, ring)))
+        for fr in f:
+            fragments.append((si, di, fr, _profile_sum(plan, filled, tile, kind, fr.rows, fr.cols,
+                                                       fr.start_open, False)))
     return TileOutput(pieces, fragments)
 
 
@@ -494,10 +521,19 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
         data = None if source.reads_in_worker else source.read(tile.window)
         return (kind, plan, source, tile, data, per_block)
 
+    search = ()
+    if settings.select_scales:
+        from .scale_selection import sigma_series
+
+        # from half the smallest scale (but not below one pixel) to twice the largest
+        lo = max(0.5 * band_scales[0][1][0].sigma_m, max(band_scales[0][0]))
+        hi = 2.0 * band_scales[0][1][-1].sigma_m
+        search = tuple(float(v) for v in sigma_series(lo, hi))
     plans, band_tiles = [], []
     first_index = 0
     for band_no, ((b0, b1), (pixel_m, scales)) in enumerate(zip(bands, band_scales)):
-        plan = RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset, rounding_std)
+        plan = RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset, rounding_std,
+                       search_sigmas=search)
         # noise level per scale and detector, on fixed blocks of this band
         blocks = spread_sample(tile_grid(georef.shape, NOISE_BLOCK, halo, rows=(b0, b1)), MAX_NOISE_BLOCKS)
         per_block = MAX_NOISE_SAMPLES // len(blocks)
@@ -531,7 +567,7 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
                     robust = float(MAD_TO_SIGMA * np.median(np.abs(comps - med))) * factor
                 thresholds[(si, di)] = _thresholds(settings, max(robust, floor))
         plans.append(RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset,
-                             rounding_std, thresholds))
+                             rounding_std, thresholds, search))
         if single:
             out = _trace_from(plans[-1], level_sets, tiles[0])
             del level_sets
@@ -568,7 +604,7 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
     return _finish(plans, bands, band_outputs, name, len(all_tiles), time.perf_counter() - t0)
 
 
-def _join_band_seams(frags: list[tuple[int, Fragment]], bands: list[tuple[int, int]]) -> list[Fragment]:
+def _join_band_seams(frags: list[tuple], bands: list[tuple[int, int]]) -> list[Fragment]:
     """Make fragments that meet at a latitude-band seam share their meeting vertex exactly.
 
     Bands use slightly different sigmas in pixels, so a line crossing a
@@ -579,10 +615,10 @@ def _join_band_seams(frags: list[tuple[int, Fragment]], bands: list[tuple[int, i
     from scipy.spatial import cKDTree
 
     if len(bands) == 1:
-        return [f for _, f in frags]
-    out = [f for _, f in frags]
-    ends = [(k, f) for k, (b, f) in enumerate(frags) if f.end_open]
-    starts = [(k, f) for k, (b, f) in enumerate(frags) if f.start_open]
+        return [f[1] for f in frags]
+    out = [f[1] for f in frags]
+    ends = [(k, f[1]) for k, f in enumerate(frags) if f[1].end_open]
+    starts = [(k, f[1]) for k, f in enumerate(frags) if f[1].start_open]
     if not ends or not starts:
         return out
     start_xy = np.array([(f.rows[0], f.cols[0]) for _, f in starts])
@@ -608,19 +644,21 @@ def _finish(plans: list[RunPlan], bands: list[tuple[int, int]], band_outputs: li
     frags: dict = {}
     for band_no, outputs in enumerate(band_outputs):
         for out in outputs:
-            for si, di, r, c, st in out.pieces:
-                groups.setdefault((si, di), []).append((r, c, st))
-            for si, di, fr in out.fragments:
-                frags.setdefault((si, di), []).append((band_no, fr))
+            for si, di, r, c, st, prof in out.pieces:
+                groups.setdefault((si, di), []).append((r, c, st, prof))
+            for si, di, fr, prof in out.fragments:
+                frags.setdefault((si, di), []).append((band_no, fr, prof))
     for key, fl in frags.items():
         # thresholds of the band where a joined run starts decide (bands differ by < 1 % in sigma)
-        for r, c, st, _closed in stitch_fragments(_join_band_seams(fl, bands)):
+        for r, c, st, _closed, members in stitch_fragments(_join_band_seams(fl, bands), with_members=True):
             band_no = next((k for k, (b0, b1) in enumerate(bands) if b0 - 0.5 <= r[0] < b1 - 0.5), 0)
             th = plans[band_no].thresholds[key]
             sp = plans[band_no].scales[key[0]]
             if keep_run(r, c, st, high=th.high, sustained=th.sustained,
                         sustained_length_px=s.min_length_sigmas * min(sp.sigma_rc)):
-                groups.setdefault(key, []).append((r, c, st))
+                profs = [fl[m][2] for m in members]
+                prof = None if profs[0] is None else np.sum(profs, axis=0)
+                groups.setdefault(key, []).append((r, c, st, prof))
     lines: list[Lineament] = []
     reports: list[ScaleReport] = []
     pixel_m = tuple(float(np.mean([p.pixel_m[a] for p in plans])) for a in (0, 1))
@@ -632,9 +670,15 @@ def _finish(plans: list[RunPlan], bands: list[tuple[int, int]], band_outputs: li
             noise, high, low = (float(np.mean([getattr(t, a) for t in ths])) for a in ("noise", "high", "low"))
             pieces = sorted(groups.get((si, di), []), key=lambda p: (float(p[0][0]), float(p[1][0])))
             min_len = s.min_length_m if s.min_length_m is not None else s.min_length_sigmas * sp.sigma_m
-            found = pieces_to_lines(pieces, plan0.georef, tolerance_m=tol, min_length_m=min_len,
+            best = None
+            if plan0.search_sigmas:
+                from .scale_selection import peak_scale
+
+                best = [peak_scale(np.asarray(plan0.search_sigmas), p[3][:-1] / max(p[3][-1], 1.0)) for p in pieces]
+            found = pieces_to_lines([p[:3] for p in pieces], plan0.georef, tolerance_m=tol, min_length_m=min_len,
                                     attributes={"scale_m": sp.sigma_m, "scale_px": scale_px,
-                                                "operator": det.operator, "kind": det.kind, "source": name})
+                                                "operator": det.operator, "kind": det.kind, "source": name},
+                                    best_scales=best)
             lines.extend(found)
             reports.append(ScaleReport(sp.sigma_m, scale_px, det.kind, det.operator, noise, high, low,
                                        len(found), float(sum(f.length_m for f in found))))

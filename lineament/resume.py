@@ -41,6 +41,13 @@ def input_identity(paths: list[str]) -> list[dict]:
     return out
 
 
+def _profiles(name: str, profiles: list) -> dict:
+    """Scale profiles (one row per piece) when scale selection ran, else nothing."""
+    if not profiles or profiles[0] is None:
+        return {}
+    return {name: np.vstack(profiles)}
+
+
 def _atomic_savez(path: Path, **arrays) -> None:
     tmp = path.with_name(path.name + ".tmp.npz")
     np.savez(tmp, **arrays)
@@ -109,7 +116,7 @@ class TileCache:
     def save_tile(self, index: int, output) -> None:
         pieces, frags = output.pieces, output.fragments
         pc = np.array([p[2].size for p in pieces], dtype=np.int64)
-        fc = np.array([f.rows.size for _, _, f in frags], dtype=np.int64)
+        fc = np.array([f.rows.size for _, _, f, _ in frags], dtype=np.int64)
         cat = lambda xs, dt: np.concatenate(xs).astype(dt) if xs else np.zeros(0, dt)  # noqa: E731
         _atomic_savez(
             self.folder / f"tile_{index}.npz",
@@ -122,10 +129,12 @@ class TileCache:
             f_si=np.array([f[0] for f in frags], dtype=np.int64),
             f_di=np.array([f[1] for f in frags], dtype=np.int64),
             f_n=fc,
-            f_open=np.array([(f.start_open, f.end_open) for _, _, f in frags], dtype=bool).reshape(-1, 2),
-            f_r=cat([f.rows for _, _, f in frags], np.float64),
-            f_c=cat([f.cols for _, _, f in frags], np.float64),
-            f_s=cat([f.strength for _, _, f in frags], np.float32),
+            f_open=np.array([(f.start_open, f.end_open) for _, _, f, _ in frags], dtype=bool).reshape(-1, 2),
+            f_r=cat([f.rows for _, _, f, _ in frags], np.float64),
+            f_c=cat([f.cols for _, _, f, _ in frags], np.float64),
+            f_s=cat([f.strength for _, _, f, _ in frags], np.float32),
+            **_profiles("p_prof", [p[5] for p in pieces]),
+            **_profiles("f_prof", [f[3] for f in frags]),
         )
 
     def load_tile(self, index: int):
@@ -139,15 +148,19 @@ class TileCache:
                 pieces, frags = [], []
                 bounds = np.concatenate(([0], np.cumsum(z["p_n"])))
                 pr, pcol, ps = z["p_r"], z["p_c"], z["p_s"]
+                pprof = z["p_prof"] if "p_prof" in z.files else None
+                fprof = z["f_prof"] if "f_prof" in z.files else None
                 for k in range(z["p_n"].size):
                     a, b = bounds[k], bounds[k + 1]
-                    pieces.append((int(z["p_si"][k]), int(z["p_di"][k]), pr[a:b], pcol[a:b], ps[a:b]))
+                    pieces.append((int(z["p_si"][k]), int(z["p_di"][k]), pr[a:b], pcol[a:b], ps[a:b],
+                                   None if pprof is None else pprof[k]))
                 bounds = np.concatenate(([0], np.cumsum(z["f_n"])))
                 fr, fcol, fs, fo = z["f_r"], z["f_c"], z["f_s"], z["f_open"]
                 for k in range(z["f_n"].size):
                     a, b = bounds[k], bounds[k + 1]
                     frags.append((int(z["f_si"][k]), int(z["f_di"][k]),
-                                  Fragment(fr[a:b], fcol[a:b], fs[a:b], bool(fo[k, 0]), bool(fo[k, 1]))))
+                                  Fragment(fr[a:b], fcol[a:b], fs[a:b], bool(fo[k, 0]), bool(fo[k, 1])),
+                                  None if fprof is None else fprof[k]))
         except (OSError, ValueError, KeyError):
             return None
         self.reused += 1

@@ -138,6 +138,10 @@ class ExtractionSettings:
         1-based band to use; default a single band as is, or luminance of an RGB image.
     z_factor : float
         Multiplier applied to raster values before filtering (vertical unit to metres).
+    select_scales : bool
+        Find each line's own scale (``best_scale_m``): where its
+        scale-normalised strength peaks between half the smallest and twice
+        the largest scale (Lindeberg 1998).  Costs extra filtering.
     void_margin_sigmas : float
         Crossings closer than this many sigmas to a void or the raster edge are dropped.
     truncate : float
@@ -163,6 +167,7 @@ class ExtractionSettings:
     simplify_tolerance_m: float | None = None
     band: int | None = None
     z_factor: float = 1.0
+    select_scales: bool = False
     void_margin_sigmas: float = 3.0
     truncate: float = 4.0
     allow_rotation: bool = False

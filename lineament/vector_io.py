@@ -38,7 +38,7 @@ DRIVERS = {
 
 #: Shapefile field names are limited to 10 characters (dBASE); these are used there instead
 #: (every other attribute name is short enough).  Units stay in the names.
-SHAPEFILE_FIELD_NAMES = {"strength_max": "strengthmx", "azimuth_deg": "azim_deg",
+SHAPEFILE_FIELD_NAMES = {"best_scale_m": "best_scl_m", "strength_max": "strengthmx", "azimuth_deg": "azim_deg",
                          "azimuth_grid_deg": "azgrid_deg"}
 
 _SHAPEFILE_PARTS = (".shp", ".shx", ".dbf", ".prj", ".cpg")

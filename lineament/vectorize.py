@@ -32,12 +32,13 @@ ATTRIBUTE_TYPES: dict[str, str] = {
     "length_m": "float",
     "azimuth_deg": "float",
     "azimuth_grid_deg": "float",
+    "best_scale_m": "float",
     "source": "str:254",
 }
 
 
 #: Decimals kept when attributes are written (millimetres, thousandths of a degree).
-_DECIMALS = {"scale_m": 3, "length_m": 3, "azimuth_deg": 3, "azimuth_grid_deg": 3}
+_DECIMALS = {"scale_m": 3, "length_m": 3, "azimuth_deg": 3, "azimuth_grid_deg": 3, "best_scale_m": 2}
 
 
 @dataclass(frozen=True)
@@ -65,6 +66,9 @@ class Lineament:
         Overall direction clockwise from grid north (NaN for geographic CRSs).
     source : str
         Input file name.
+    best_scale_m : float
+        Scale at which the line's scale-normalised strength peaks (NaN when
+        not selected, or when the peak lies outside the searched range).
     """
 
     geometry: LineString
@@ -78,6 +82,7 @@ class Lineament:
     azimuth_deg: float
     azimuth_grid_deg: float
     source: str
+    best_scale_m: float = float("nan")
 
     def properties(self) -> dict:
         """Attributes as a plain dict (keys of :data:`ATTRIBUTE_TYPES`)."""
@@ -91,7 +96,7 @@ class Lineament:
 
 
 def pieces_to_lines(pieces: Iterable[CrossingPiece], georef: GeoRef, *, tolerance_m: float,
-                    min_length_m: float, attributes: dict) -> list[Lineament]:
+                    min_length_m: float, attributes: dict, best_scales=None) -> list[Lineament]:
     """Georeference, simplify and measure traced pieces.
 
     Parameters
@@ -105,6 +110,8 @@ def pieces_to_lines(pieces: Iterable[CrossingPiece], georef: GeoRef, *, toleranc
         Lines shorter than this (geodesic metres) are dropped.
     attributes : dict
         ``scale_m``, ``scale_px``, ``operator``, ``kind``, ``source``.
+    best_scales : sequence of float, optional
+        ``best_scale_m`` of each piece.
 
     Returns
     -------
@@ -151,5 +158,6 @@ def pieces_to_lines(pieces: Iterable[CrossingPiece], georef: GeoRef, *, toleranc
             azimuth_deg=float(measures["azimuth_deg"][j]),
             azimuth_grid_deg=float(measures["azimuth_grid_deg"][j]),
             source=str(attributes["source"]),
+            best_scale_m=float("nan") if best_scales is None else float(best_scales[i]),
         ))
     return out
