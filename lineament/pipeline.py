@@ -563,8 +563,10 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
                 floor, factor = parts[0][1], parts[0][2]
                 robust = 0.0
                 if comps.size:
-                    med = np.median(comps)
-                    robust = float(MAD_TO_SIGMA * np.median(np.abs(comps - med))) * factor
+                    # The components have zero mean on a background without preferred direction,
+                    # so the spread is taken about zero: a quarter turn of the raster (which
+                    # negates one component) then leaves the noise level unchanged.
+                    robust = float(MAD_TO_SIGMA * np.median(np.abs(comps))) * factor
                 thresholds[(si, di)] = _thresholds(settings, max(robust, floor))
         plans.append(RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset,
                              rounding_std, thresholds, search))

@@ -15,6 +15,9 @@ from .errors import InputError, RasterReadError, SettingsError
 from .georef import GeoRef
 from .settings import ExtractionSettings
 
+#: GDAL block cache while reading windows, megabytes.
+GDAL_CACHE_MB = 128
+
 #: Luma weights of ITU-R BT.709 (the same as ``skimage.color.rgb2gray``).
 LUMA_709 = (0.2125, 0.7154, 0.0721)
 
@@ -262,7 +265,9 @@ def read_window(info: RasterInfo, row0: int, col0: int, row1: int, col1: int) ->
     from rasterio.windows import Window
 
     def read():
-        with _open(info.path) as ds:
+        # GDAL's block cache defaults to 5 % of RAM and fills up with a big raster's blocks; a
+        # fixed cache keeps memory independent of raster size (windows are read once or twice).
+        with rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB), _open(info.path) as ds:
             return ds.read(list(info.bands), masked=True,
                            window=Window(col0, row0, col1 - col0, row1 - row0))
 

@@ -5,7 +5,9 @@ from __future__ import annotations
 import contextlib
 import functools
 import logging
+import signal
 import sys
+import threading
 import time
 import tomllib
 import traceback
@@ -91,6 +93,8 @@ def handle_errors(func):
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
         debug = kwargs.get("debug", False)
+        if threading.current_thread() is threading.main_thread():
+            signal.signal(signal.SIGINT, signal.default_int_handler)  # Ctrl-C now cleans up and says so
         try:
             with _quiet_libraries(debug):
                 return func(*args, **kwargs)
@@ -140,7 +144,7 @@ def load_config(ctx: click.Context, param: click.Parameter, value: str | None):
         fail(f"{value}: cannot read config file ({exc})", 2)
     section = data[ctx.info_name] if isinstance(data.get(ctx.info_name), dict) else data
     # only options can be set from a file; the input and --config itself cannot
-    known = {p.name for p in ctx.command.params
+    known = {p.name: p for p in ctx.command.params
              if isinstance(p, click.Option) and p.name not in ("config",) and p.expose_value}
     defaults = {}
     for key, val in section.items():
@@ -151,6 +155,10 @@ def load_config(ctx: click.Context, param: click.Parameter, value: str | None):
             fail(f"{value}: setting {key!r} must be a value, not a table", 2)
         if isinstance(val, list):
             val = ",".join(str(v) for v in val)
+        try:  # check the type here, so a bad value is one line naming the file
+            known[name].type_cast_value(ctx, val)
+        except click.BadParameter as exc:
+            fail(f"{value}: setting {key!r}: {exc.message}", 2)
         defaults[name] = val
     ctx.default_map = {**(ctx.default_map or {}), **defaults}
     return value

@@ -2,15 +2,32 @@
 
 from __future__ import annotations
 
-import click
+import os
+import signal
+import sys
 
-from .._version import __version__
-from .compare import compare
-from .density import density
-from .extract import extract
-from .refine import refine
-from .report import report
-from .rose import rose
+
+def _interrupted_while_starting(signum, frame):  # pragma: no cover - timing dependent
+    """Ctrl-C before a command runs: nothing has been written, so say so and leave at once."""
+    sys.stderr.write("lineament: interrupted; no output was written\n")
+    sys.stderr.flush()
+    os._exit(130)
+
+
+# Installed before the heavy imports below (numpy, GDAL, ...), which can take a second or two;
+# each command restores Python's own handler when it starts (cli.common.handle_errors).
+if signal.getsignal(signal.SIGINT) is signal.default_int_handler:
+    signal.signal(signal.SIGINT, _interrupted_while_starting)
+
+import click  # noqa: E402
+
+from .._version import __version__  # noqa: E402
+from .compare import compare  # noqa: E402
+from .density import density  # noqa: E402
+from .extract import extract  # noqa: E402
+from .refine import refine  # noqa: E402
+from .report import report  # noqa: E402
+from .rose import rose  # noqa: E402
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100})
