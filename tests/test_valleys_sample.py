@@ -57,29 +57,28 @@ def _analytic_strength(p, sigma):
     return depth * TROUGH_DEPTH_FACTOR * sigma**2 * w / (w * w + sigma * sigma) ** 1.5
 
 
-#: (feature_id, sigma_m) whose analytic strength exceeds the run's high threshold; checked below.
-ABOVE_LIMIT = [(7, 40.0), (7, 80.0),
-               pytest.param(8, 40.0, marks=pytest.mark.xfail(
-                   strict=True, reason="found over 89 % (analytic strength only 1.24 x the high threshold)")),
-               (11, 20.0), (12, 20.0)]
+def _best_scale(p, high: dict) -> tuple[float, float]:
+    """The default scale at which a planted feature stands highest above the run's threshold."""
+    ratios = {s: _analytic_strength(p, s) / high[(p["kind"], s)] for s in (20.0, 40.0, 80.0)}
+    sigma = max(ratios, key=ratios.get)
+    return sigma, ratios[sigma]
 
 
-def test_which_planted_features_are_above_the_detection_limit(faulted):
-    # Only features above the high threshold the run reports can seed a line.  The faintest
-    # valley (feature 9, 6 m deep, 30 m wide: 4.3 against 6.2 at 20 m, 6.5 against 9.7 at 40 m)
-    # and the widest (10, 15 m deep, 80 m wide: 15.0 against 16.1 at 80 m) are below the limit
-    # at every default scale, so the recall test covers the others.
+def test_every_planted_valley_and_ridge_is_above_the_detection_limit(faulted):
+    # Only features above the high threshold the run reports can seed a line; the sample is
+    # built so that each valley and ridge clears it by 30 % or more at its best default scale.
     result, truth, props, *_ = faulted
     high = {(s.kind, s.scale_m): s.high_threshold for s in result.scales}
-    above = {(p["feature_id"], s) for p in props if p["kind"] in ("valley", "ridge")
-             for s in (20.0, 40.0, 80.0) if _analytic_strength(p, s) > high[(p["kind"], s)]}
-    assert above == {(7, 40.0), (7, 80.0), (8, 40.0), (11, 20.0), (12, 20.0)}
+    for p in props:
+        if p["kind"] in ("valley", "ridge"):
+            assert _best_scale(p, high)[1] > 1.3, p["feature_id"]
 
 
-@pytest.mark.parametrize(("feature_id", "sigma"), ABOVE_LIMIT)
-def test_planted_valley_or_ridge_is_found(faulted, feature_id, sigma):
+@pytest.mark.parametrize("feature_id", [7, 8, 9, 10, 11, 12])
+def test_planted_valley_or_ridge_is_found(faulted, feature_id):
     result, truth, props, voids, z, transform = faulted
     geom, p = next((g, q) for g, q in zip(truth, props) if q["feature_id"] == feature_id)
+    sigma, _ = _best_scale(p, {(s.kind, s.scale_m): s.high_threshold for s in result.scales})
     depth, w = p["amplitude_m"], p["width_m"]
     # Compared: the planted line without its tapered ends (5 % each, where the depth fades to 0,
     # make_samples.TAPER_FRACTION) and without the parts within 3 sigma of a void (no line is
