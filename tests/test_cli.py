@@ -208,3 +208,24 @@ def test_unexpected_errors_are_one_line_with_exit_code_1():
     result = CliRunner().invoke(broken, ["--debug"], catch_exceptions=False)
     assert result.exit_code == 1
     assert "Traceback" in result.stderr
+
+
+def test_output_crs_reprojects_the_written_lines(scarp_raster, tmp_path):
+    # Reference: pyproj Transformer from the raster's CRS (UTM 33N) to ETRS89 / LAEA Europe (EPSG:3035).
+    from pyproj import Transformer
+
+    path, _ = scarp_raster
+    native, laea = tmp_path / "native.gpkg", tmp_path / "laea.gpkg"
+    for out, extra in ((native, []), (laea, ["--output-crs", "EPSG:3035"])):
+        result = CliRunner().invoke(cli, ["extract", str(path), "-o", str(out), "-q", "--features", "edges", *extra])
+        assert result.exit_code == 0, result.stderr
+    with fiona.open(native) as a, fiona.open(laea) as b:
+        assert CRS.from_wkt(b.crs_wkt).equals(CRS.from_epsg(3035))
+        fa, fb = list(a), list(b)
+    assert len(fa) == len(fb) > 0
+    tr = Transformer.from_crs(32633, 3035, always_xy=True)
+    for x, y in zip(fa, fb):
+        ax, ay = np.asarray(x["geometry"]["coordinates"]).T
+        np.testing.assert_allclose(np.column_stack(tr.transform(ax, ay)), np.asarray(y["geometry"]["coordinates"]),
+                                   atol=1e-6)
+        assert x["properties"]["length_m"] == y["properties"]["length_m"]  # ground length does not change
