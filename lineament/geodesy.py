@@ -26,9 +26,7 @@ def fold_axial(deg: np.ndarray) -> np.ndarray:
 
 
 def _to_lonlat(x: np.ndarray, y: np.ndarray, crs: CRS) -> tuple[np.ndarray, np.ndarray]:
-    if crs.is_geographic:
-        # Axis order of a geographic CRS in a raster is longitude, latitude (GDAL traditional order).
-        return x, y
+    """Longitude and latitude in degrees (x, y taken in GDAL's traditional longitude-first order)."""
     tr = Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
     return tr.transform(x, y)
 
@@ -81,6 +79,19 @@ def _axis_chords(u: np.ndarray, v: np.ndarray, first: np.ndarray, last: np.ndarr
 
 
 def line_measures(xs: list[np.ndarray], ys: list[np.ndarray], georef: GeoRef) -> dict[str, np.ndarray]:
+    """Lengths and azimuths of lines in the CRS of a raster; see :func:`measure_lines`."""
+    return measure_lines(xs, ys, georef.crs)
+
+
+def geod_of(crs: CRS) -> Geod:
+    """Ellipsoid of a CRS (WGS84 when it has none)."""
+    try:
+        return crs.get_geod() or Geod(ellps="WGS84")
+    except Exception:  # pragma: no cover - exotic CRS
+        return Geod(ellps="WGS84")
+
+
+def measure_lines(xs: list[np.ndarray], ys: list[np.ndarray], crs: CRS | None) -> dict[str, np.ndarray]:
     """Lengths and azimuths of many polylines in map coordinates.
 
     The azimuth is that of the line's overall direction: the chord of its
@@ -93,8 +104,8 @@ def line_measures(xs: list[np.ndarray], ys: list[np.ndarray], georef: GeoRef) ->
     Parameters
     ----------
     xs, ys : list of ndarray
-        Vertex coordinates of each line in the CRS of ``georef``.
-    georef : GeoRef
+        Vertex coordinates of each line in ``crs``.
+    crs : pyproj.CRS or None
 
     Returns
     -------
@@ -113,25 +124,26 @@ def line_measures(xs: list[np.ndarray], ys: list[np.ndarray], georef: GeoRef) ->
     y = np.concatenate(ys).astype(np.float64)
     first = np.concatenate(([0], np.cumsum(counts)[:-1]))
     last = first + counts - 1
-    if georef.crs is None or not georef.is_geographic:
+    geographic = crs is not None and crs.is_geographic
+    if not geographic:
         x0, y0, x1, y1 = _axis_chords(x, y, first, last)
         grid_az = fold_axial(np.degrees(np.arctan2(x1 - x0, y1 - y0)))
-    if georef.crs is None:
+    if crs is None:
         return {"length_m": _sum_per_line(np.hypot(np.diff(x), np.diff(y)), first, last),
                 "azimuth_deg": grid_az, "azimuth_grid_deg": grid_az.copy()}
-    lon, lat = _to_lonlat(x, y, georef.crs)
-    geod = georef.geod
+    lon, lat = _to_lonlat(x, y, crs)
+    geod = geod_of(crs)
     _, _, dist = geod.inv(lon[:-1], lat[:-1], lon[1:], lat[1:])
     lengths = _sum_per_line(np.asarray(dist, dtype=np.float64), first, last)
-    if georef.is_geographic:
+    if geographic:
         coslat = np.cos(np.radians(np.repeat(0.5 * (lat[first] + lat[last]), counts)))
         u0, v0, u1, v1 = _axis_chords(lon * coslat, lat, first, last)
         c = coslat[first]
         lon0, lat0, lon1, lat1 = u0 / c, v0, u1 / c, v1
         grid = np.full(n, np.nan)
     else:
-        lon0, lat0 = _to_lonlat(x0, y0, georef.crs)
-        lon1, lat1 = _to_lonlat(x1, y1, georef.crs)
+        lon0, lat0 = _to_lonlat(x0, y0, crs)
+        lon1, lat1 = _to_lonlat(x1, y1, crs)
         grid = grid_az
     az, _, _ = geod.inv(lon0, lat0, lon1, lat1)
     true_az = fold_axial(np.asarray(az, dtype=np.float64))

@@ -183,11 +183,18 @@ def test_geographic_length_is_geodesic():
     assert got[0] == pytest.approx(expected, rel=1e-12)
 
 
-def test_projected_length_uses_crs_unit():
-    line = LineString([(0, 0), (3000, 4000)])
-    got = ground_lengths_m([line], CRS.from_epsg(2229))  # a US survey foot CRS
-    # US survey foot = 1200/3937 m (EPSG unit 9003); 5000 ft by Pythagoras.
-    assert got[0] == pytest.approx(5000.0 * 1200.0 / 3937.0, rel=1e-12)
+def test_projected_length_is_geodesic_in_any_unit():
+    # A US survey foot CRS: the ground length is the geodesic between the end points
+    # (pyproj Transformer + Geod), close to 5000 ft = 5000 * 1200/3937 m (EPSG unit 9003) times
+    # the projection's scale factor.
+    x0, y0 = 6_400_000.0, 1_800_000.0
+    line = LineString([(x0, y0), (x0 + 3000, y0 + 4000)])
+    crs = CRS.from_epsg(2229)
+    got = ground_lengths_m([line], crs)
+    lon, lat = Transformer.from_crs(crs, 4326, always_xy=True).transform([x0, x0 + 3000], [y0, y0 + 4000])
+    _, _, expected = Geod(ellps="GRS80").inv(lon[0], lat[0], lon[1], lat[1])
+    assert got[0] == pytest.approx(expected, rel=1e-6)
+    assert got[0] == pytest.approx(5000.0 * 1200.0 / 3937.0, rel=2e-4)
 
 
 def test_azimuths_geodesic_and_grid():
@@ -197,12 +204,16 @@ def test_azimuths_geodesic_and_grid():
     # Reference: pyproj.Geod forward azimuth, folded to the axial range.
     fwd, _, _ = Geod(ellps="WGS84").inv(lon[0], lat[0], lon[1], lat[1])
     assert got[0] == pytest.approx(fwd % 180.0, abs=1e-9)
+    x0, y0 = 500_000.0, 5_000_000.0  # on the central meridian of UTM 33N: true north = grid north
     grid = azimuths_deg(
-        [LineString([(0, 0), (1, 1)]), LineString([(0, 0), (-1, 1)]), LineString([(5, 5), (5, 0)])],
+        [LineString([(x0, y0), (x0 + 100, y0 + 100)]), LineString([(x0, y0), (x0 - 100, y0 + 100)]),
+         LineString([(x0 + 5, y0 + 5), (x0 + 5, y0)])],
         CRS.from_epsg(32633),
     )
-    # Analytic: NE is 45 deg, NW is 315 = 135 deg axial, due south is 180 = 0 deg.
-    np.testing.assert_allclose(grid, [45.0, 135.0, 0.0], atol=1e-12)
+    # Analytic: NE is 45 deg, NW is 315 = 135 deg axial, due south is 180 = 0 deg (axial, so a value
+    # a hair below 180 is the same direction); meridian convergence is zero on the central meridian.
+    axial_gap = np.minimum(np.abs(grid - [45.0, 135.0, 0.0]), 180.0 - np.abs(grid - [45.0, 135.0, 0.0]))
+    assert axial_gap.max() < 1e-4
 
 
 def test_metric_crs_is_local_and_equidistant():

@@ -123,11 +123,13 @@ def test_rose_bins_offset_and_folding():
 
 
 def test_rose_for_lines_weights_by_ground_length():
-    lines = [LineString([(0, 0), (0, 300)]), LineString([(0, 0), (100, 0)])]
+    x0, y0 = 500_000.0, 5_000_000.0  # on the UTM 33N central meridian (scale factor 0.9996)
+    lines = [LineString([(x0, y0), (x0, y0 + 300)]), LineString([(x0, y0), (x0 + 100, y0)])]
     table = rose_for_lines(lines, CRS.from_epsg(32633), bin_width_deg=30.0)
-    # Analytic: a 300 m north line and a 100 m east line.
-    assert table.frequency[0] == pytest.approx(300.0)
-    assert table.frequency[3] == pytest.approx(100.0)
+    # Analytic: a 300 m north line and a 100 m east line; ground length = grid length / 0.9996
+    # (UTM central scale factor, from memory).
+    assert table.frequency[0] == pytest.approx(300.0 / 0.9996, rel=1e-4)
+    assert table.frequency[3] == pytest.approx(100.0 / 0.9996, rel=1e-4)
     by_count = rose_for_lines(lines, CRS.from_epsg(32633), by="count", bin_width_deg=30.0)
     assert by_count.share[0] == pytest.approx(0.5)
 

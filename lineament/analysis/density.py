@@ -37,7 +37,8 @@ from pyproj import CRS
 
 from ..errors import InputError, OutputError, SettingsError
 from ..georef import GeoRef
-from .layers import _as_array, _degrees_per_unit, _geod_of, crs_linear_unit_m, reproject_lines
+from ..geodesy import geod_of
+from .layers import _as_array, _degrees_per_unit, crs_linear_unit_m, reproject_lines
 
 __all__ = [
     "line_density",
@@ -150,7 +151,7 @@ def _segments(arr: np.ndarray, georef: GeoRef, pad_rows: int, pad_cols: int):
     seg_part = idx[:-1][same]
     if georef.is_geographic:
         k = _degrees_per_unit(georef.crs)
-        _, _, seg_len = _geod_of(georef.crs).inv(a[:, 0] * k, a[:, 1] * k, b[:, 0] * k, b[:, 1] * k)
+        _, _, seg_len = geod_of(georef.crs).inv(a[:, 0] * k, a[:, 1] * k, b[:, 0] * k, b[:, 1] * k)
         seg_len = np.asarray(seg_len, dtype=np.float64)
     else:
         seg_len = np.hypot(b[:, 0] - a[:, 0], b[:, 1] - a[:, 1]) * georef.linear_unit_m

@@ -24,6 +24,7 @@ from pyproj.crs.coordinate_operation import AzimuthalEquidistantConversion
 from shapely.geometry import LineString, MultiLineString, shape
 
 from ..errors import InputError
+from ..geodesy import measure_lines
 
 __all__ = [
     "read_lines",
@@ -147,88 +148,63 @@ def _degrees_per_unit(crs: CRS) -> float:
     return float(rad) * 180.0 / math.pi
 
 
-def _geod_of(crs: CRS) -> Geod:
-    try:
-        return crs.get_geod() or Geod(ellps="WGS84")
-    except Exception:  # pragma: no cover - exotic CRS
-        return Geod(ellps="WGS84")
-
-
 def _as_array(geoms) -> np.ndarray:
     arr = np.asarray(list(geoms) if not isinstance(geoms, np.ndarray) else geoms, dtype=object)
     return arr.reshape(-1)
 
 
+def _measures(geoms: Sequence[LineString], crs: CRS | None) -> dict[str, np.ndarray] | None:
+    arr = _as_array(geoms)
+    if arr.size == 0:
+        return None
+    coords, idx = shapely.get_coordinates(arr, return_index=True)
+    counts = np.bincount(idx, minlength=arr.size)
+    if (counts < 2).any():
+        raise InputError("line with fewer than two vertices")
+    splits = np.cumsum(counts)[:-1]
+    return measure_lines(np.split(coords[:, 0], splits), np.split(coords[:, 1], splits), crs)
+
+
 def ground_lengths_m(geoms: Sequence[LineString], crs: CRS | None) -> np.ndarray:
-    """Ground length of each line in metres.
+    """Ground length of each line in metres, as ``lineament extract`` measures ``length_m``.
+
+    Geodesic on the CRS's ellipsoid for geographic and projected CRSs alike
+    (:func:`lineament.geodesy.measure_lines`, Karney 2013); planar, in CRS
+    units, without a CRS.
 
     Parameters
     ----------
     geoms : sequence of LineString, length N
     crs : pyproj.CRS or None
-        Geographic CRS: geodesic length on the CRS's ellipsoid
-        (:meth:`pyproj.Geod.inv` summed over the segments).  Projected CRS:
-        planar length times the CRS's linear unit (grid length, which
-        differs from ground length by the projection's scale factor).
-        None: planar length, coordinates taken as metres.
 
     Returns
     -------
     ndarray of float64, shape (N,)
     """
-    arr = _as_array(geoms)
-    if arr.size == 0:
-        return np.zeros(0, dtype=np.float64)
-    if crs is None or not crs.is_geographic:
-        return shapely.length(arr).astype(np.float64) * crs_linear_unit_m(crs)
-    coords, idx = shapely.get_coordinates(arr, return_index=True)
-    if len(coords) < 2:
-        return np.zeros(arr.size, dtype=np.float64)
-    coords = coords * _degrees_per_unit(crs)
-    same = idx[1:] == idx[:-1]
-    a, b = coords[:-1][same], coords[1:][same]
-    _, _, dist = _geod_of(crs).inv(a[:, 0], a[:, 1], b[:, 0], b[:, 1])
-    return np.bincount(idx[1:][same], weights=np.asarray(dist, dtype=np.float64), minlength=arr.size)
-
-
-def _fold_axial(az: np.ndarray) -> np.ndarray:
-    """Fold directions in degrees into [0, 180)."""
-    out = np.mod(az, 180.0)
-    out[out >= 180.0] = 0.0  # np.mod(-tiny, 180) rounds to 180.0
-    return out
+    m = _measures(geoms, crs)
+    return np.zeros(0, dtype=np.float64) if m is None else m["length_m"]
 
 
 def azimuths_deg(geoms: Sequence[LineString], crs: CRS | None) -> np.ndarray:
-    """Overall direction of each line, first to last vertex, in [0, 180).
+    """Overall direction of each line in [0, 180), as ``lineament extract`` measures ``azimuth_deg``.
 
-    Clockwise from north.  For a geographic CRS this is the geodesic forward
-    azimuth on the CRS's ellipsoid (:meth:`pyproj.Geod.inv`); otherwise the
-    grid azimuth ``atan2(dx, dy)`` (the y axis taken as grid north).  Lines
-    whose first and last vertices coincide (closed rings) have no direction
-    and get NaN.
+    Clockwise from true north: the geodesic forward azimuth of the line's
+    principal axis (:func:`lineament.geodesy.measure_lines`); grid azimuth
+    without a CRS.  Lines whose first and last vertices coincide (closed
+    rings) have no overall direction and get NaN.
 
     Returns
     -------
     ndarray of float64, shape (N,)
     """
-    arr = _as_array(geoms)
-    if arr.size == 0:
+    m = _measures(geoms, crs)
+    if m is None:
         return np.zeros(0, dtype=np.float64)
+    arr = _as_array(geoms)
     first = shapely.get_coordinates(shapely.get_point(arr, 0))
     last = shapely.get_coordinates(shapely.get_point(arr, -1))
-    if len(first) != arr.size:
-        raise InputError("azimuths_deg: empty line geometry")
-    dx = last[:, 0] - first[:, 0]
-    dy = last[:, 1] - first[:, 1]
-    degenerate = (dx == 0) & (dy == 0)
-    if crs is not None and crs.is_geographic:
-        k = _degrees_per_unit(crs)
-        az, _, _ = _geod_of(crs).inv(first[:, 0] * k, first[:, 1] * k, last[:, 0] * k, last[:, 1] * k)
-        az = np.asarray(az, dtype=np.float64)
-    else:
-        az = np.degrees(np.arctan2(dx, dy))
-    out = _fold_axial(az)
-    out[degenerate] = np.nan
+    out = m["azimuth_deg"].copy()
+    out[(first == last).all(axis=1)] = np.nan
     return out
 
 
