@@ -15,7 +15,9 @@ from .errors import InputError, RasterReadError, SettingsError
 from .georef import GeoRef
 from .settings import ExtractionSettings
 
-#: GDAL block cache while reading windows, megabytes.
+#: GDAL block cache, megabytes.  GDAL sizes its cache once, at first use (default 5 % of RAM,
+#: which a big raster's blocks fill up); every open and read here runs with this value so that
+#: memory does not grow with raster size.
 GDAL_CACHE_MB = 128
 
 #: Luma weights of ITU-R BT.709 (the same as ``skimage.color.rgb2gray``).
@@ -207,7 +209,7 @@ def open_raster(path: str | os.PathLike, settings: ExtractionSettings | None = N
         raise RasterReadError(f"{name}: file is empty, not a raster")
 
     def inspect():
-        with _open(name) as ds:
+        with rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB), _open(name) as ds:
             georef = resolve_georef(ds, name, settings)
             data_bands = _data_bands(ds)
             if settings.band is not None:
@@ -265,8 +267,6 @@ def read_window(info: RasterInfo, row0: int, col0: int, row1: int, col1: int) ->
     from rasterio.windows import Window
 
     def read():
-        # GDAL's block cache defaults to 5 % of RAM and fills up with a big raster's blocks; a
-        # fixed cache keeps memory independent of raster size (windows are read once or twice).
         with rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB), _open(info.path) as ds:
             return ds.read(list(info.bands), masked=True,
                            window=Window(col0, row0, col1 - col0, row1 - row0))

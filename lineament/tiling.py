@@ -95,8 +95,8 @@ def strided_overview(read, georef: GeoRef, max_pixels: int) -> tuple[np.ndarray,
     strip = max(step, (STRIP_PIXELS // max(1, georef.width) // step) * step)
     for r0 in range(0, georef.height, strip):
         v, ok = read((r0, 0, min(georef.height, r0 + strip), georef.width))
-        rows_v.append(v[::step, ::step])
-        rows_ok.append(ok[::step, ::step])
+        rows_v.append(v[::step, ::step].copy())  # copies: a view would keep the whole strip alive
+        rows_ok.append(ok[::step, ::step].copy())
     return np.concatenate(rows_v), np.concatenate(rows_ok)
 
 
