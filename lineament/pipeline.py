@@ -42,7 +42,8 @@ from .vectorize import Lineament, pieces_to_lines
 #: Core size of the blocks the noise level is measured on; fixed, so that the
 #: noise level (and every threshold) does not depend on the tile size.
 NOISE_BLOCK = 1024
-#: At most this many noise blocks, spread evenly over the raster.
+#: At most this many noise blocks, spread evenly over the raster; with many blocks, about a
+#: quarter of them (at least 4) is enough for a robust spread and keeps the extra filtering small.
 MAX_NOISE_BLOCKS = 64
 #: At most this many samples per noise component, pooled over blocks.
 MAX_NOISE_SAMPLES = 2_000_000
@@ -535,7 +536,8 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
         plan = RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset, rounding_std,
                        search_sigmas=search)
         # noise level per scale and detector, on fixed blocks of this band
-        blocks = spread_sample(tile_grid(georef.shape, NOISE_BLOCK, halo, rows=(b0, b1)), MAX_NOISE_BLOCKS)
+        all_blocks = tile_grid(georef.shape, NOISE_BLOCK, halo, rows=(b0, b1))
+        blocks = spread_sample(all_blocks, min(MAX_NOISE_BLOCKS, max(4, math.ceil(len(all_blocks) / 4))))
         per_block = MAX_NOISE_SAMPLES // len(blocks)
         tiles = tile_grid(georef.shape, tile_size, halo, rows=(b0, b1), first_index=first_index)
         single = (len(bands) == 1 and len(blocks) == 1 and len(tiles) == 1 and blocks[0].window == tiles[0].window

@@ -76,7 +76,8 @@ def spread_sample(tiles: list[Tile], count: int) -> list[Tile]:
     """Up to ``count`` tiles spread evenly over the list (deterministic)."""
     if len(tiles) <= count:
         return list(tiles)
-    idx = np.unique(np.round(np.linspace(0, len(tiles) - 1, count)).astype(int))
+    # the middle of each of ``count`` equal runs of tiles (row-major order)
+    idx = np.unique(np.floor((np.arange(count) + 0.5) * len(tiles) / count).astype(int))
     return [tiles[i] for i in idx]
 
 
