@@ -314,6 +314,20 @@ def run_tile_task(task) -> object:
     return _trace_tile(plan, tile, values, valid)
 
 
+def _noise_thresholds(settings: ExtractionSettings, samples: list[dict], key: tuple[int, int]) -> Thresholds:
+    """Thresholds for one scale and detector from the noise samples of every block."""
+    parts = [smp[key] for smp in samples]
+    comps = np.concatenate([p[0] for p in parts])
+    floor, factor = parts[0][1], parts[0][2]
+    robust = 0.0
+    if comps.size:
+        # The components have zero mean on a background without preferred direction, so the
+        # spread is taken about zero: a quarter turn of the raster (which negates one component)
+        # then leaves the noise level unchanged.
+        robust = float(MAD_TO_SIGMA * np.median(np.abs(comps))) * factor
+    return _thresholds(settings, max(robust, floor))
+
+
 def _thresholds(settings: ExtractionSettings, noise: float) -> Thresholds:
     high = settings.high_threshold if settings.high_threshold is not None else settings.high_noise_multiple * noise
     low = settings.low_threshold if settings.low_threshold is not None else settings.low_noise_multiple * noise
@@ -540,44 +554,33 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
         blocks = spread_sample(all_blocks, min(MAX_NOISE_BLOCKS, max(4, math.ceil(len(all_blocks) / 4))))
         per_block = MAX_NOISE_SAMPLES // len(blocks)
         tiles = tile_grid(georef.shape, tile_size, halo, rows=(b0, b1), first_index=first_index)
-        single = (len(bands) == 1 and len(blocks) == 1 and len(tiles) == 1 and blocks[0].window == tiles[0].window
-                  and blocks[0].core == tiles[0].core)
+        if len(bands) == 1 and len(tiles) == 1:
+            # The whole raster is one tile: filter it once.  Each scale and detector gets its noise
+            # level from the noise blocks' cores inside this window (the same cells and values a
+            # separate pass would see), then is traced at once, so only one level set is held.
+            tile = tiles[0]
+            values, valid = source.read(tile.window)
+            plan = RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset, rounding_std,
+                           {}, search)
+            pieces, fragments = [], []
+            for item in _window_level_sets(plan, values, valid, tile.edges(georef.shape)):
+                samples = [_noise_from([item], Tile(b.index, b.core, tile.window), per_block) for b in blocks]
+                plan.thresholds[item[:2]] = _noise_thresholds(settings, samples, item[:2])
+                out = _trace_from(plan, [item], tile)
+                pieces.extend(out.pieces)
+                fragments.extend(out.fragments)
+            if progress:
+                progress(1, 1)
+            return _finish([plan], bands, [[TileOutput(pieces, fragments)]], name, 1, time.perf_counter() - t0)
         samples = None if cache is None else cache.load_noise(band_no)
-        if single and samples is None:
-            # one window holds the whole raster: filter it once for both the noise level and the lines
-            values, valid = source.read(tiles[0].window)
-            level_sets = list(_window_level_sets(plan, values, valid, tiles[0].edges(georef.shape)))
-            samples = [_noise_from(level_sets, blocks[0], per_block)]
-            if cache is not None:
-                cache.save_noise(samples, band_no)
-        elif samples is None:
-            single = False
+        if samples is None:
             samples = executor([task("noise", plan, b, per_block) for b in blocks], None)
             if cache is not None:
                 cache.save_noise(samples, band_no)
-        else:
-            single = False
-        thresholds = {}
-        for si in range(len(scales)):
-            for di in range(len(detectors)):
-                parts = [smp[(si, di)] for smp in samples]
-                comps = np.concatenate([p[0] for p in parts])
-                floor, factor = parts[0][1], parts[0][2]
-                robust = 0.0
-                if comps.size:
-                    # The components have zero mean on a background without preferred direction,
-                    # so the spread is taken about zero: a quarter turn of the raster (which
-                    # negates one component) then leaves the noise level unchanged.
-                    robust = float(MAD_TO_SIGMA * np.median(np.abs(comps))) * factor
-                thresholds[(si, di)] = _thresholds(settings, max(robust, floor))
+        thresholds = {(si, di): _noise_thresholds(settings, samples, (si, di))
+                      for si in range(len(scales)) for di in range(len(detectors))}
         plans.append(RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset,
                              rounding_std, thresholds, search))
-        if single:
-            out = _trace_from(plans[-1], level_sets, tiles[0])
-            del level_sets
-            if progress:
-                progress(1, 1)
-            return _finish(plans, bands, [[out]], name, 1, time.perf_counter() - t0)
         first_index += len(tiles)
         band_tiles.append(tiles)
 
