@@ -112,7 +112,7 @@ def extract(inputs, output, scales, operator, features, band, min_length, simpli
     Several inputs on one CRS and pixel grid are processed as one mosaic, so
     lines cross tile seams whole. Each line carries kind, operator, scale_m,
     scale_px, strength, strength_max, length_m, azimuth_deg,
-    azimuth_grid_deg and source.
+    azimuth_grid_deg, best_scale_m (with --select-scales) and source.
     """
     t0 = time.perf_counter()
     try:
