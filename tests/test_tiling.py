@@ -163,3 +163,39 @@ def test_resumed_run_equals_uninterrupted(tmp_path, scene, whole):
     # a different key starts afresh
     fresh = TileCache(tmp_path / "cache", {"test": 2}, resume=True)
     assert not list((tmp_path / "cache").glob("tile_*.npz")) and fresh.reused == 0
+
+
+def test_survey_of_inputs_in_two_crss_is_written_in_the_first_ones(tmp_path):
+    # Two scarps: one raster in UTM 33N, one in UTM 34N (EPSG:32634).  They are processed
+    # separately and written to one layer in the first input's CRS (sorted paths), each line with
+    # its own source; the command says what it did.  Reference: pyproj for the reprojection.
+    from click.testing import CliRunner
+    from pyproj import CRS, Transformer
+
+    import fiona
+    from lineament.cli.main import cli
+
+    n = 160
+    g33 = utm_georef(n, n)
+    z = (100 + step_image(n, n, angle_deg=20.0, offset_px=0.3, height_step=20.0, blur_px=1.0)).astype(np.float32)
+    a = write_geotiff(tmp_path / "a_utm33.tif", z, g33)
+    g34 = type(g33)(Affine(10, 0, 300000, 0, -10, 5200000), CRS.from_epsg(32634), n, n)
+    b = write_geotiff(tmp_path / "b_utm34.tif", z, g34)
+    out = tmp_path / "survey.gpkg"
+    result = CliRunner().invoke(cli, ["extract", str(b), str(a), "-o", str(out), "--features", "edges",
+                                      "--scales", "20"])
+    assert result.exit_code == 0, result.stderr
+    assert "2 CRSs" in result.stderr
+    with fiona.open(out) as src:
+        assert CRS.from_wkt(src.crs_wkt).equals(CRS.from_epsg(32633))
+        feats = list(src)
+    sources = {f["properties"]["source"] for f in feats}
+    assert sources == {"a_utm33.tif", "b_utm34.tif"}
+    # the UTM 34N raster's lines land where pyproj puts that raster's footprint in UTM 33N
+    tr = Transformer.from_crs(32634, 32633, always_xy=True)
+    fx, fy = tr.transform([300000, 301600], [5200000, 5198400])
+    for f in feats:
+        if f["properties"]["source"] == "b_utm34.tif":
+            xs, ys = np.asarray(f["geometry"]["coordinates"]).T
+            assert min(fx) - 50 < xs.min() and xs.max() < max(fx) + 50
+            assert min(fy) - 50 < ys.min() and ys.max() < max(fy) + 50
