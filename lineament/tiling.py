@@ -223,28 +223,67 @@ def group_inputs(infos: list) -> list:
     mosaicked.  Groups and their members are in sorted path order, so the
     result does not depend on the order inputs were given in.
     """
-    from affine import Affine
-
     infos = sorted(infos, key=lambda i: i.path)
-    groups: dict = {}
+    grids: dict = {}
     for info in infos:
         key = _grid_key(info.georef) if info.georef.is_rectilinear else ("single", info.path)
-        groups.setdefault(key, []).append(info)
+        grids.setdefault(key, []).append(info)
     out = []
-    for members in groups.values():
-        if len(members) == 1:
-            out.append(FileSource(members[0]))
-            continue
-        t0 = members[0].georef.transform
-        a, e = t0.a, t0.e
-        cols0 = [round((m.georef.transform.c - t0.c) / a) for m in members]
-        rows0 = [round((m.georef.transform.f - t0.f) / e) for m in members]
-        cmin, rmin = min(cols0), min(rows0)
-        width = max(c - cmin + m.georef.width for c, m in zip(cols0, members))
-        height = max(r - rmin + m.georef.height for r, m in zip(rows0, members))
-        transform = Affine(a, 0.0, t0.c + cmin * a, 0.0, e, t0.f + rmin * e)
-        g = GeoRef(transform, members[0].georef.crs, height, width)
-        placements = tuple((r - rmin, c - cmin) for r, c in zip(rows0, cols0))
-        name = f"mosaic of {len(members)} rasters"
-        out.append(MosaicSource(tuple(members), placements, g, name))
+    for on_grid in grids.values():
+        for members in _touching(on_grid):
+            if len(members) == 1:
+                out.append(FileSource(members[0]))
+                continue
+            out.append(_mosaic(members))
     return out
+
+
+def _touching(infos: list) -> list[list]:
+    """Split rasters on one grid into groups that touch or overlap (connected, in path order).
+
+    Rasters far apart on the same grid are processed separately rather than
+    as one mosaic full of empty space; a line can only cross between rasters
+    that touch.
+    """
+    n = len(infos)
+    parent = list(range(n))
+
+    def find(i: int) -> int:
+        while parent[i] != i:
+            parent[i] = parent[parent[i]]
+            i = parent[i]
+        return i
+
+    boxes = []
+    for info in infos:
+        t, g = info.georef.transform, info.georef
+        x0, x1 = sorted((t.c, t.c + t.a * g.width))
+        y0, y1 = sorted((t.f, t.f + t.e * g.height))
+        tol = 0.5 * min(g.pixel_size)  # edges that meet count as touching
+        boxes.append((x0 - tol, x1 + tol, y0 - tol, y1 + tol))
+    for i in range(n):
+        for j in range(i + 1, n):
+            a, b = boxes[i], boxes[j]
+            if a[0] <= b[1] and b[0] <= a[1] and a[2] <= b[3] and b[2] <= a[3]:
+                parent[find(j)] = find(i)
+    groups: dict = {}  # insertion order: by each group's first member in path order
+    for i in range(n):
+        groups.setdefault(find(i), []).append(infos[i])
+    return list(groups.values())
+
+
+def _mosaic(members: list) -> "MosaicSource":
+    """A virtual mosaic of rasters on one north-up pixel grid."""
+    from affine import Affine
+
+    t0 = members[0].georef.transform
+    a, e = t0.a, t0.e
+    cols0 = [round((m.georef.transform.c - t0.c) / a) for m in members]
+    rows0 = [round((m.georef.transform.f - t0.f) / e) for m in members]
+    cmin, rmin = min(cols0), min(rows0)
+    width = max(c - cmin + m.georef.width for c, m in zip(cols0, members))
+    height = max(r - rmin + m.georef.height for r, m in zip(rows0, members))
+    transform = Affine(a, 0.0, t0.c + cmin * a, 0.0, e, t0.f + rmin * e)
+    g = GeoRef(transform, members[0].georef.crs, height, width)
+    placements = tuple((r - rmin, c - cmin) for r, c in zip(rows0, cols0))
+    return MosaicSource(tuple(members), placements, g, f"mosaic of {len(members)} rasters")

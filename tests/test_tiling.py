@@ -199,3 +199,20 @@ def test_survey_of_inputs_in_two_crss_is_written_in_the_first_ones(tmp_path):
             xs, ys = np.asarray(f["geometry"]["coordinates"]).T
             assert min(fx) - 50 < xs.min() and xs.max() < max(fx) + 50
             assert min(fy) - 50 < ys.min() and ys.max() < max(fy) + 50
+
+
+def test_rasters_far_apart_on_one_grid_are_not_one_mosaic(tmp_path):
+    # Same CRS and pixel grid, but 2 km apart: two separate runs, not one mosaic full of voids;
+    # the two touching ones form a mosaic.
+    from lineament.raster_io import open_raster
+    from lineament.tiling import FileSource, MosaicSource, group_inputs
+
+    z = np.zeros((100, 100), np.float32)
+    g = utm_georef(100, 100)
+    a = write_geotiff(tmp_path / "a.tif", z, g)
+    b = write_geotiff(tmp_path / "b.tif", z, g.window(0, 100, 100, 100))  # touches a on its east edge
+    c = write_geotiff(tmp_path / "c.tif", z, g.window(0, 300, 100, 100))  # 2 km further east
+    sources = group_inputs([open_raster(str(p)) for p in (c, b, a)])
+    assert [type(s) for s in sources] == [MosaicSource, FileSource]
+    assert [i.source for i in sources[0].infos] == ["a.tif", "b.tif"]
+    assert sources[1].source == "c.tif"
