@@ -39,6 +39,7 @@ from scipy import ndimage
 from ._version import __version__
 from .analysis.layers import reproject_lines
 from .analysis.orientation import orientation_sets, plot_rose, rose_bins
+from .atomic import replaced_atomically
 from .errors import InputError, OutputError, RasterReadError, SettingsError
 from .geodesy import line_measures
 from .georef import GeoRef
@@ -101,23 +102,8 @@ def check_file_output(path: str | os.PathLike, extensions: Sequence[str], *, ove
 
 
 def _atomic_write_bytes(path: Path, data: bytes) -> None:
-    folder = path.parent
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
-    except OSError as exc:
-        raise OutputError(f"{path}: cannot write in folder {folder} ({exc.strerror or exc})") from None
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes the file private; give it the usual rights
-        os.replace(tmp, path)
-    except OSError as exc:
-        raise OutputError(f"{path}: cannot write ({exc.strerror or exc})") from None
-    finally:
-        if os.path.exists(tmp):
-            os.remove(tmp)
+    with replaced_atomically(path) as tmp, open(tmp, "wb") as fh:
+        fh.write(data)
 
 
 def line_measures_of_layer(geoms, crs: CRS | None) -> dict[str, np.ndarray]:

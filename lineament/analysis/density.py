@@ -27,7 +27,6 @@ from __future__ import annotations
 
 import math
 import os
-import tempfile
 from collections.abc import Sequence
 
 import numpy as np
@@ -35,6 +34,7 @@ import shapely
 from affine import Affine
 from pyproj import CRS
 
+from ..atomic import replaced_atomically
 from ..errors import InputError, OutputError, SettingsError
 from ..georef import GeoRef
 from ..geodesy import geod_of
@@ -466,34 +466,27 @@ def write_density(
     except ImportError as exc:  # pragma: no cover - a core dependency
         raise OutputError(f"{path}: rasterio is needed to write GeoTIFF") from exc
     try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{os.path.basename(path)}.", suffix=".tif", dir=parent)
-        os.close(fd)
-    except OSError as exc:
-        raise OutputError(f"{path}: cannot write ({exc.strerror or exc})") from exc
-    try:
-        profile = {
-            "driver": "GTiff",
-            "height": data.shape[0],
-            "width": data.shape[1],
-            "count": 1,
-            "dtype": "float32",
-            "transform": georef.transform,
-            "crs": None if georef.crs is None else RioCRS.from_wkt(georef.crs.to_wkt()),
-            "nodata": float(nodata),
-            "compress": "deflate",
-            "predictor": 3,
-        }
-        if data.shape[0] >= 256 and data.shape[1] >= 256:
-            profile.update(tiled=True, blockxsize=256, blockysize=256)
-        with rasterio.open(tmp, "w", **profile) as dst:
-            dst.write(data, 1)
-            if tags:
-                dst.update_tags(**{str(k): str(v) for k, v in tags.items()})
-        os.replace(tmp, path)
+        with replaced_atomically(path, suffix=".tif") as tmp:
+            profile = {
+                "driver": "GTiff",
+                "height": data.shape[0],
+                "width": data.shape[1],
+                "count": 1,
+                "dtype": "float32",
+                "transform": georef.transform,
+                "crs": None if georef.crs is None else RioCRS.from_wkt(georef.crs.to_wkt()),
+                "nodata": float(nodata),
+                "compress": "deflate",
+                "predictor": 3,
+            }
+            if data.shape[0] >= 256 and data.shape[1] >= 256:
+                profile.update(tiled=True, blockxsize=256, blockysize=256)
+            with rasterio.open(tmp, "w", **profile) as dst:
+                dst.write(data, 1)
+                if tags:
+                    dst.update_tags(**{str(k): str(v) for k, v in tags.items()})
+    except OutputError:
+        raise
     except Exception as exc:
-        try:
-            os.remove(tmp)
-        except OSError:
-            pass
         msg = " ".join(str(exc).split()) or type(exc).__name__
         raise OutputError(f"{path}: cannot write GeoTIFF ({msg})") from exc

@@ -18,12 +18,12 @@ import csv
 import json
 import math
 import os
-import tempfile
 from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
 
+from ..atomic import replaced_atomically
 from ..errors import OutputError, SettingsError
 from .layers import azimuths_deg, ground_lengths_m
 
@@ -497,33 +497,9 @@ def _check_target(path: str, allowed: tuple[str, ...], overwrite: bool, what: st
 
 def _atomic_write(path: str, writer, *, binary: bool) -> None:
     """Write through a temporary file in the same directory, then rename."""
-    parent = os.path.dirname(os.path.abspath(path))
-    base = os.path.basename(path)
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{base}.", suffix=".tmp", dir=parent)
-    except OSError as exc:
-        raise OutputError(f"{path}: cannot write ({exc.strerror or exc})") from exc
-    try:
-        mode = "wb" if binary else "w"
-        with os.fdopen(fd, mode, **({} if binary else {"newline": "", "encoding": "utf-8"})) as fh:
+    with replaced_atomically(path) as tmp:
+        with open(tmp, "wb" if binary else "w", **({} if binary else {"newline": "", "encoding": "utf-8"})) as fh:
             writer(fh)
-        os.replace(tmp, path)
-    except OutputError:
-        _remove_quietly(tmp)
-        raise
-    except OSError as exc:
-        _remove_quietly(tmp)
-        raise OutputError(f"{path}: cannot write ({exc.strerror or exc})") from exc
-    except BaseException:
-        _remove_quietly(tmp)
-        raise
-
-
-def _remove_quietly(path: str) -> None:
-    try:
-        os.remove(path)
-    except OSError:
-        pass
 
 
 def write_rose_table(table: RoseTable, path: str | os.PathLike, *, overwrite: bool = False) -> None:
