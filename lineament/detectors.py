@@ -23,7 +23,7 @@ from scipy import ndimage
 
 from .crossings import noise_gain, step_strength_factor, strength_map
 from .errors import SettingsError
-from .scalespace import dog_response, gaussian_kernel1d, log_response
+from .scalespace import dog_response, gaussian_kernel1d, log_response, residual_sigma
 from .settings import DOG_RATIO
 
 
@@ -69,7 +69,9 @@ class Detector:
     reach_factor : float
         The widest kernel reaches ``reach_factor * truncate * sigma``; sets the tile halo.
     run : callable
-        ``run(image, sigma_m, pixel_size_m, *, truncate, rounding_std) -> LevelSet``.
+        ``run(image, sigma_m, pixel_size_m, *, truncate, rounding_std, prior_blur_px=0) -> LevelSet``;
+        ``pixel_size_m`` is the size of the cells of ``image`` (coarse cells on a decimated level,
+        which already carries ``prior_blur_px`` cells of Gaussian blur).
     """
 
     kind: str
@@ -79,15 +81,15 @@ class Detector:
 
 
 def _edge_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float], *,
-                    truncate: float, rounding_std: float, operator: str) -> LevelSet:
+                    truncate: float, rounding_std: float, operator: str, prior_blur_px: float = 0.0) -> LevelSet:
     """Zero crossings of the scale-normalised LoG or DoG (Marr and Hildreth 1980)."""
     if operator == "log":
         response_of = functools.partial(log_response, sigma_m=sigma_m, pixel_size_m=pixel_size_m,
-                                        truncate=truncate)
+                                        truncate=truncate, prior_blur_px=prior_blur_px)
         response_scale = 1.0
     else:
         response_of = functools.partial(dog_response, sigma_m=sigma_m, pixel_size_m=pixel_size_m,
-                                        ratio=DOG_RATIO, truncate=truncate)
+                                        ratio=DOG_RATIO, truncate=truncate, prior_blur_px=prior_blur_px)
         response_scale = 2.0 / (DOG_RATIO - 1.0 / DOG_RATIO)
     resp = response_of(image)
     strength, gx, gy = strength_map(resp, sigma_m, pixel_size_m)
@@ -102,7 +104,7 @@ def _edge_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float
 
 # --------------------------------------------------------------------------- Gaussian derivative stack
 def derivative_stack(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float],
-                     orders: tuple[tuple[int, int], ...], *, truncate: float) -> dict:
+                     orders: tuple[tuple[int, int], ...], *, truncate: float, prior_blur_px: float = 0.0) -> dict:
     """Gaussian derivatives of one image at one scale, in ground units.
 
     The separable passes are shared: each column-direction kernel is applied
@@ -122,6 +124,9 @@ def derivative_stack(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[floa
         ``gaussian_derivative``), each order 0 to 3.
     truncate : float
         Kernel half-width in sigmas.
+    prior_blur_px : float
+        Gaussian blur the image already carries, in its pixels (see
+        :func:`~lineament.scalespace.residual_sigma`).
 
     Returns
     -------
@@ -130,7 +135,7 @@ def derivative_stack(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[floa
         in raster units per metre to the total order.
     """
     dx, dy = pixel_size_m
-    srow, scol = sigma_m / dy, sigma_m / dx
+    srow, scol = residual_sigma(sigma_m / dy, prior_blur_px), residual_sigma(sigma_m / dx, prior_blur_px)
     img = np.asarray(image, dtype=np.float32)
     out: dict = {}
     for ocol in sorted({o[1] for o in orders}):
@@ -196,7 +201,7 @@ def _orientation_flips(px: np.ndarray, py: np.ndarray) -> np.ndarray:
 
 
 def _curvature_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float], *,
-                         truncate: float, rounding_std: float, sign: int) -> LevelSet:
+                         truncate: float, rounding_std: float, sign: int, prior_blur_px: float = 0.0) -> LevelSet:
     """Valley (``sign=+1``) or ridge (``sign=-1``) axes from the Hessian at one scale.
 
     The principal direction ``p`` is the eigenvector of the Hessian whose
@@ -252,7 +257,7 @@ def _curvature_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[
     TPAMI 20(2), 113-125. doi:10.1109/34.659930
     """
     d = derivative_stack(image, sigma_m, pixel_size_m, ((0, 1), (1, 0), (0, 2), (2, 0), (1, 1)),
-                         truncate=truncate)
+                         truncate=truncate, prior_blur_px=prior_blur_px)
     lx, ly, lxx, lyy, lxy = d[(0, 1)], d[(1, 0)], d[(0, 2)], d[(2, 0)], d[(1, 1)]
     m = np.float32(0.5) * (lxx + lyy)
     a = np.float32(0.5) * (lxx - lyy)
@@ -286,7 +291,8 @@ def _curvature_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[
     strength = (np.abs(lpp) * np.float32(factor)).astype(np.float32)
 
     def components(img):
-        dd = derivative_stack(img, sigma_m, pixel_size_m, ((0, 2), (2, 0), (1, 1)), truncate=truncate)
+        dd = derivative_stack(img, sigma_m, pixel_size_m, ((0, 2), (2, 0), (1, 1)), truncate=truncate,
+                              prior_blur_px=prior_blur_px)
         return (np.float32(0.5) * (dd[(0, 2)] - dd[(2, 0)]), dd[(1, 1)])
 
     gain = _impulse_gain(components, sigma_m, pixel_size_m, truncate=truncate)
@@ -303,7 +309,7 @@ GRADIENT_NOISE_CALIBRATION = 1.1
 
 
 def _gradient_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float], *,
-                        truncate: float, rounding_std: float) -> LevelSet:
+                        truncate: float, rounding_std: float, prior_blur_px: float = 0.0) -> LevelSet:
     """Gradient edges (Canny 1986) at one scale, as a level set.
 
     Non-maximum suppression of the Gaussian gradient magnitude along the
@@ -329,7 +335,7 @@ def _gradient_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[f
     scale selection. IJCV 30(2), 117-156. doi:10.1023/A:1008097225773
     """
     orders = ((0, 1), (1, 0), (0, 2), (2, 0), (1, 1), (0, 3), (1, 2), (2, 1), (3, 0))
-    d = derivative_stack(image, sigma_m, pixel_size_m, orders, truncate=truncate)
+    d = derivative_stack(image, sigma_m, pixel_size_m, orders, truncate=truncate, prior_blur_px=prior_blur_px)
     lx, ly = d[(0, 1)], d[(1, 0)]
     g = np.hypot(lx, ly)
     nz = g > 0
@@ -345,7 +351,8 @@ def _gradient_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[f
     strength = (g * np.float32(factor)).astype(np.float32)
 
     def components(img):
-        dd = derivative_stack(img, sigma_m, pixel_size_m, ((0, 1), (1, 0)), truncate=truncate)
+        dd = derivative_stack(img, sigma_m, pixel_size_m, ((0, 1), (1, 0)), truncate=truncate,
+                              prior_blur_px=prior_blur_px)
         return (dd[(0, 1)], dd[(1, 0)])
 
     gain = _impulse_gain(components, sigma_m, pixel_size_m, truncate=truncate)

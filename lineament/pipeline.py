@@ -19,6 +19,7 @@ worker count or order of execution.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import os
 import time
@@ -33,6 +34,7 @@ from .crossings import MAD_TO_SIGMA, Core, Fragment, keep_run, stitch_fragments,
 from .detectors import Detector, detectors_for
 from .errors import InputError, SettingsError
 from .georef import GeoRef
+from .pyramid import LEVEL_BLUR_PX, Pyramid, decimation_factor, pyramid_reach
 from .raster_io import RasterData, open_raster
 from .scalespace import fill_voids
 from .settings import ExtractionSettings, Scale
@@ -71,11 +73,16 @@ class ScaleReport:
 
 @dataclass(frozen=True)
 class ScalePlan:
-    """One scale: sigma in metres and in pixels along rows and columns."""
+    """One scale: sigma in metres and in pixels along rows and columns.
+
+    ``factor`` is the step of the decimated grid it is filtered on
+    (:mod:`lineament.pyramid`; 1: full resolution).
+    """
 
     scale: Scale
     sigma_m: float
     sigma_rc: tuple[float, float]
+    factor: int = 1
 
     @property
     def scale_px(self) -> float:
@@ -190,13 +197,29 @@ def _scale_plans(georef: GeoRef, settings: ExtractionSettings, source: str, *,
 
 
 def _halo(plans: list[ScalePlan], detectors: list[Detector], settings: ExtractionSettings) -> tuple[int, int]:
-    """Cells a window needs beyond its core: fill reach + kernel reach + margin + stencils."""
+    """Cells a window needs beyond its core: fill reach + kernel reach + margin + stencils.
+
+    On a decimated grid the stencils (derivatives, cubic sampling) span
+    coarse cells, and the halving blurs reach further; the halo is a multiple
+    of the largest decimation factor, so windows stay aligned with the
+    decimated grids.
+    """
     reach = max(d.reach_factor for d in detectors) * settings.truncate
+    step = max(p.factor for p in plans)
     out = []
     for axis in (0, 1):
-        sigma = max(p.sigma_rc[axis] for p in plans)
-        out.append(int(math.ceil((settings.truncate + reach + settings.void_margin_sigmas) * sigma)) + 6)
+        need = max(int(math.ceil((settings.truncate + reach + settings.void_margin_sigmas) * p.sigma_rc[axis]))
+                   + 6 * p.factor + pyramid_reach(p.factor, settings.truncate) for p in plans)
+        out.append(step * int(math.ceil(need / step)))
     return (out[0], out[1])
+
+
+def _coarse_window(tile: Tile, factor: int) -> tuple[tuple[int, int], Core]:
+    """Offset and core of a tile on the grid decimated by ``factor`` (window offsets are multiples of it)."""
+    r0, c0 = tile.offset
+    c = tile.core
+    return ((r0 // factor, c0 // factor),
+            Core(c.row0 // factor, c.col0 // factor, -(-c.row1 // factor), -(-c.col1 // factor)))
 
 
 def _centre(values: np.ndarray, valid: np.ndarray, offset: float, z_factor: float) -> np.ndarray:
@@ -227,16 +250,35 @@ def _usable(valid: np.ndarray, edges: tuple[bool, bool, bool, bool], pixel_m: tu
 
 
 def _window_level_sets(plan: RunPlan, values: np.ndarray, valid: np.ndarray, edges):
-    """Yield (scale index, detector index, LevelSet, usable mask, filled window) for one window."""
+    """Yield (scale index, detector index, LevelSet, usable mask, filled window, factor) for one window.
+
+    A scale with ``factor > 1`` is filtered on the window's decimated grid
+    (its LevelSet and usable mask are on that grid); the filled window is the
+    full-resolution one, made only when best scales are searched.
+    """
     s = plan.settings
     arr = _centre(values, valid, plan.offset, s.z_factor)
     dist = _usable(valid, edges, plan.pixel_m)
+    pyramid = Pyramid(arr, valid, truncate=s.truncate)
     for si, sp in enumerate(plan.scales):
-        filled = fill_voids(arr, valid, sp.sigma_rc, truncate=s.truncate)
-        usable = np.ones(valid.shape, bool) if dist is None else dist > s.void_margin_sigmas * sp.sigma_m
+        f = sp.factor
+        fine_filled = None
+        if f == 1 or plan.search_sigmas:
+            fine_filled = fill_voids(arr, valid, sp.sigma_rc, truncate=s.truncate)
+        if f == 1:
+            filled = fine_filled
+            usable = np.ones(valid.shape, bool) if dist is None else dist > s.void_margin_sigmas * sp.sigma_m
+            pixel, blur = plan.pixel_m, 0.0
+        else:
+            level, level_valid = pyramid.level(f)
+            filled = fill_voids(level, level_valid, (sp.sigma_rc[0] / f, sp.sigma_rc[1] / f), truncate=s.truncate)
+            usable = (np.ones(level.shape, bool) if dist is None
+                      else dist[::f, ::f] > s.void_margin_sigmas * sp.sigma_m)
+            pixel, blur = (plan.pixel_m[0] * f, plan.pixel_m[1] * f), LEVEL_BLUR_PX
         for di, det in enumerate(plan.detectors):
-            ls = det.run(filled, sp.sigma_m, plan.pixel_m, truncate=s.truncate, rounding_std=plan.rounding_std)
-            yield si, di, ls, usable, filled
+            ls = det.run(filled, sp.sigma_m, pixel, truncate=s.truncate, rounding_std=plan.rounding_std,
+                         prior_blur_px=blur)
+            yield si, di, ls, usable, fine_filled, f
 
 
 def _noise_samples(plan: RunPlan, tile: Tile, values, valid, per_block: int) -> dict:
@@ -245,11 +287,10 @@ def _noise_samples(plan: RunPlan, tile: Tile, values, valid, per_block: int) -> 
 
 
 def _noise_from(level_sets, tile: Tile, per_block: int) -> dict:
-    r0, c0 = tile.offset
-    core = tile.core
-    sl = (slice(core.row0 - r0, core.row1 - r0), slice(core.col0 - c0, core.col1 - c0))
     out: dict = {}
-    for si, di, ls, usable, _ in level_sets:
+    for si, di, ls, usable, _, f in level_sets:
+        (r0, c0), core = _coarse_window(tile, f)
+        sl = (slice(core.row0 - r0, core.row1 - r0), slice(core.col0 - c0, core.col1 - c0))
         ok = usable[sl]
         if ls.allowed is not None:
             ok = ok & ls.allowed[sl]
@@ -289,13 +330,17 @@ def _profile_sum(plan: RunPlan, filled: np.ndarray, tile: Tile, kind: str, rows:
 
 def _trace_from(plan: RunPlan, level_sets, tile: Tile) -> TileOutput:
     pieces, fragments = [], []
-    for si, di, ls, usable, filled in level_sets:
+    for si, di, ls, usable, filled, factor in level_sets:
         th = plan.thresholds[(si, di)]
         sp = plan.scales[si]
         kind = plan.detectors[di].kind
+        offset, core = _coarse_window(tile, factor)
         p, f = trace_level_set(ls.field, ls.strength, usable, high=th.high, low=th.low, sustained=th.sustained,
-                               sustained_length_px=plan.settings.min_length_sigmas * min(sp.sigma_rc),
-                               allowed=ls.allowed, offset=tile.offset, core=tile.core)
+                               sustained_length_px=plan.settings.min_length_sigmas * min(sp.sigma_rc) / factor,
+                               allowed=ls.allowed, offset=offset, core=core)
+        if factor != 1:  # back to full-resolution indices (exact: the factor is a power of two)
+            p = [(r * factor, c * factor, st) for r, c, st in p]
+            f = [Fragment(fr.rows * factor, fr.cols * factor, fr.strength, fr.start_open, fr.end_open) for fr in f]
         for r, c, st in p:
             ring = r.size > 2 and r[0] == r[-1] and c[0] == c[-1]
             pieces.append((si, di, r, c, st, _profile_sum(plan, filled, tile, kind, r, c, False, ring)))
@@ -461,6 +506,13 @@ def latitude_bands(georef: GeoRef, tolerance: float = LATITUDE_BAND_TOLERANCE) -
     return bands
 
 
+def _aligned_bands(bands: list[tuple[int, int]], step: int) -> list[tuple[int, int]]:
+    """Latitude bands with every inner boundary moved down to a multiple of ``step`` (empty bands dropped)."""
+    cuts = sorted({step * (b0 // step) for b0, _ in bands[1:]} - {0})
+    edges = [0] + cuts + [bands[-1][1]]
+    return [(a, b) for a, b in zip(edges[:-1], edges[1:]) if b > a]
+
+
 def _check_geographic(georef: GeoRef, name: str) -> None:
     if not georef.is_geographic:
         return
@@ -514,11 +566,20 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
     _check_geographic(georef, name)
     detectors = detectors_for(settings, is_image=source.is_image)
     bands = latitude_bands(georef)
-    band_scales = []
-    for b0, b1 in bands:
-        band_georef = georef.window(b0, 0, b1 - b0, georef.width)
-        pixel_m, scales = _scale_plans(band_georef, settings, name, size_of=georef)
-        band_scales.append((pixel_m, scales))
+    band_scales = [_scale_plans(georef.window(b0, 0, b1 - b0, georef.width), settings, name, size_of=georef)
+                   for b0, b1 in bands]
+    # one decimation factor per scale for the whole raster, from its smallest sigma in pixels
+    factors = [decimation_factor(min(min(sc[si].sigma_rc) for _, sc in band_scales),
+                                 enabled=not settings.full_resolution) for si in range(len(settings.scales))]
+    step = max(factors)
+    if step > 1:
+        # tiles, halos and latitude bands start on rows and columns of every decimated grid
+        tile_size = step * int(math.ceil(tile_size / step))
+        bands = _aligned_bands(bands, step)
+        band_scales = [_scale_plans(georef.window(b0, 0, b1 - b0, georef.width), settings, name, size_of=georef)
+                       for b0, b1 in bands]
+    band_scales = [(pixel_m, [dataclasses.replace(sp, factor=f) for sp, f in zip(sc, factors)])
+                   for pixel_m, sc in band_scales]
     halo = tuple(max(_halo(sc, detectors, settings)[axis] for _, sc in band_scales) for axis in (0, 1))
 
     # global centring offset and value range, from a tile-independent overview

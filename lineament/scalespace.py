@@ -71,6 +71,24 @@ def gaussian_kernel1d(sigma: float, order: int = 0, truncate: float = 4.0) -> np
     return k[::-1].copy() if order % 2 else k
 
 
+def residual_sigma(sigma_px: float, prior_blur_px: float = 0.0) -> float:
+    """Sigma still to apply to an image that already carries a Gaussian blur of ``prior_blur_px``.
+
+    Gaussian blurs add in variance (Lindeberg 1994, semi-group property), so
+    the result is ``sqrt(sigma_px**2 - prior_blur_px**2)``.
+
+    Parameters
+    ----------
+    sigma_px, prior_blur_px : float
+        Total and already applied sigma, in pixels of the image.
+    """
+    if prior_blur_px <= 0:
+        return float(sigma_px)
+    if sigma_px <= prior_blur_px:
+        raise ValueError(f"sigma {sigma_px:g} px is not larger than the blur already applied ({prior_blur_px:g} px)")
+    return math.sqrt(sigma_px * sigma_px - prior_blur_px * prior_blur_px)
+
+
 def gaussian_derivative(image: np.ndarray, sigma_rc: tuple[float, float], order_rc: tuple[int, int],
                         *, truncate: float = 4.0) -> np.ndarray:
     """Separable Gaussian derivative of a 2-D float32 image.
@@ -99,7 +117,7 @@ def gaussian_derivative(image: np.ndarray, sigma_rc: tuple[float, float], order_
 
 
 def log_response(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float],
-                 *, truncate: float = 4.0) -> np.ndarray:
+                 *, truncate: float = 4.0, prior_blur_px: float = 0.0) -> np.ndarray:
     """Scale-normalised Laplacian of Gaussian, ``sigma**2 * (Lxx + Lyy)``.
 
     Derivatives are taken in ground units, so non-square pixels get the
@@ -115,13 +133,16 @@ def log_response(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, f
         Pixel size along columns (x) and along rows (y), metres.
     truncate : float
         Kernel half-width in sigmas.
+    prior_blur_px : float
+        Gaussian blur the image already carries, in its pixels (a decimated
+        level of :mod:`lineament.pyramid`); the filters add only the rest.
 
     Returns
     -------
     ndarray, shape (rows, cols), float32
     """
     dx, dy = pixel_size_m
-    srow, scol = sigma_m / dy, sigma_m / dx
+    srow, scol = residual_sigma(sigma_m / dy, prior_blur_px), residual_sigma(sigma_m / dx, prior_blur_px)
     lyy = gaussian_derivative(image, (srow, scol), (2, 0), truncate=truncate)
     lxx = gaussian_derivative(image, (srow, scol), (0, 2), truncate=truncate)
     s2 = np.float32(sigma_m * sigma_m)
@@ -131,7 +152,7 @@ def log_response(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, f
 
 
 def dog_response(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float],
-                 *, ratio: float = DOG_RATIO, truncate: float = 4.0) -> np.ndarray:
+                 *, ratio: float = DOG_RATIO, truncate: float = 4.0, prior_blur_px: float = 0.0) -> np.ndarray:
     """Scale-normalised difference of Gaussians centred on ``sigma_m``.
 
     The two Gaussians have sigmas ``sigma_m / sqrt(ratio)`` and
@@ -146,8 +167,11 @@ def dog_response(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, f
     dx, dy = pixel_size_m
     r = math.sqrt(ratio)
     s_lo, s_hi = sigma_m / r, sigma_m * r
-    g_hi = gaussian_derivative(image, (s_hi / dy, s_hi / dx), (0, 0), truncate=truncate)
-    g_lo = gaussian_derivative(image, (s_lo / dy, s_lo / dx), (0, 0), truncate=truncate)
+    b = prior_blur_px
+    g_hi = gaussian_derivative(image, (residual_sigma(s_hi / dy, b), residual_sigma(s_hi / dx, b)), (0, 0),
+                               truncate=truncate)
+    g_lo = gaussian_derivative(image, (residual_sigma(s_lo / dy, b), residual_sigma(s_lo / dx, b)), (0, 0),
+                               truncate=truncate)
     g_hi -= g_lo
     g_hi *= np.float32(2.0 / (ratio - 1.0 / ratio))
     return g_hi

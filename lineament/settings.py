@@ -152,6 +152,11 @@ class ExtractionSettings:
         CRS to use when the raster has none (any pyproj user input).
     pixel_coordinates : bool
         Accept a raster without georeferencing and work in pixel units.
+    full_resolution : bool
+        Filter every scale on the full-resolution grid.  By default a scale
+        of 4 pixels or more is filtered on a decimated grid where it spans 2
+        to 4 cells (:mod:`lineament.pyramid`), which is several times faster
+        and gives the same lines to a small fraction of a pixel.
     """
 
     scales: tuple[Scale, ...] = DEFAULT_SCALES
@@ -173,6 +178,7 @@ class ExtractionSettings:
     allow_rotation: bool = False
     assume_crs: str | None = None
     pixel_coordinates: bool = False
+    full_resolution: bool = False
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "scales", parse_scales(self.scales))

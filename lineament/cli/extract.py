@@ -84,6 +84,9 @@ def _with_option_names(message: str) -> str:
 @click.option("--select-scales", is_flag=True,
               help="Also find each line's own scale (attribute best_scale_m): where its scale-normalised "
                    "strength peaks, between half the smallest and twice the largest scale. Slower.")
+@click.option("--full-resolution", is_flag=True,
+              help="Filter every scale on the full-resolution grid instead of a decimated one for scales "
+                   "of 4 pixels and more. Slower; the lines move by a small fraction of a pixel.")
 @click.option("--output-crs", default=None, metavar="CRS",
               help="Write lines in this CRS (e.g. EPSG:4326). Default: the raster's CRS (GeoJSON: always WGS84).")
 @click.option("--tile-size", type=int, default=DEFAULT_TILE_SIZE, show_default=True,
@@ -99,7 +102,7 @@ def _with_option_names(message: str) -> str:
 @handle_errors
 def extract(inputs, output, scales, operator, features, band, min_length, simplify, high_threshold,
             low_threshold, high_noise_multiple, low_noise_multiple, z_factor, allow_rotation,
-            assume_crs, pixel_coordinates, select_scales, output_crs, tile_size, workers, cluster, resume, overwrite,
+            assume_crs, pixel_coordinates, select_scales, full_resolution, output_crs, tile_size, workers, cluster, resume, overwrite,
             quiet, debug):
     """Find lineaments in GeoTIFF DEMs or images and write them as lines.
 
@@ -122,7 +125,8 @@ def extract(inputs, output, scales, operator, features, band, min_length, simpli
             high_threshold=_float_or_none(high_threshold), low_threshold=_float_or_none(low_threshold),
             high_noise_multiple=float(high_noise_multiple), low_noise_multiple=float(low_noise_multiple),
             z_factor=float(z_factor), allow_rotation=bool(allow_rotation), assume_crs=assume_crs,
-            pixel_coordinates=bool(pixel_coordinates), select_scales=bool(select_scales))
+            pixel_coordinates=bool(pixel_coordinates), select_scales=bool(select_scales),
+            full_resolution=bool(full_resolution))
     except (TypeError, ValueError) as exc:
         raise SettingsError(_with_option_names(str(exc))) from None
     for option, value in (("--assume-crs", assume_crs), ("--output-crs", output_crs)):
