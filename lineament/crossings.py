@@ -25,10 +25,10 @@ from dataclasses import dataclass
 from typing import Iterator
 
 import numpy as np
-from scipy import ndimage
 from skimage.measure import find_contours
 
 from ._fasttrace import candidate_pixels
+from ._kernels import correlate1d
 
 #: Consistency factor turning a median absolute deviation into a Gaussian
 #: standard deviation (1 / Phi^-1(3/4); Rousseeuw and Croux 1993).
@@ -39,7 +39,7 @@ MAD_TO_SIGMA = 1.482602218505602
 #: smooth at the filter scale, so this keeps the gradient within a few per cent at sigma = 2 px
 #: where the 3-point difference is about 10 % low (Fornberg 1988, "Generation of finite
 #: difference formulas on arbitrarily spaced grids", Math. Comp. 51, 699-706).
-_DERIVATIVE_5 = np.array([1.0, -8.0, 0.0, 8.0, -1.0], dtype=np.float32) / np.float32(12.0)
+_DERIVATIVE_5 = np.array([1.0, -8.0, 0.0, 8.0, -1.0]) / 12.0
 
 
 @dataclass(frozen=True)
@@ -91,8 +91,8 @@ def strength_map(response: np.ndarray, sigma_m: float,
     gx, gy : ndarray, float32
         Gradient components of ``R`` per metre along columns and rows.
     """
-    gx = ndimage.correlate1d(response, _DERIVATIVE_5, axis=1, output=np.float32, mode="nearest")
-    gy = ndimage.correlate1d(response, _DERIVATIVE_5, axis=0, output=np.float32, mode="nearest")
+    gx = correlate1d(response, _DERIVATIVE_5, 1, mode="nearest")
+    gy = correlate1d(response, _DERIVATIVE_5, 0, mode="nearest")
     gx /= np.float32(pixel_size_m[0])
     gy /= np.float32(pixel_size_m[1])
     mag = np.hypot(gx, gy)

@@ -234,8 +234,8 @@ def _usable(valid: np.ndarray, edges: tuple[bool, bool, bool, bool], pixel_m: tu
     Window sides inside the raster are padded as valid, raster edges as void.
     """
     top, bottom, left, right = edges
-    if valid.all() and not any(edges):
-        return None
+    if valid.all():
+        return None  # only raster edges, if any: see _usable_mask
     padded = np.pad(valid, 1, constant_values=True)
     if top:
         padded[0, :] = False
@@ -247,6 +247,33 @@ def _usable(valid: np.ndarray, edges: tuple[bool, bool, bool, bool], pixel_m: tu
         padded[:, -1] = False
     dist = ndimage.distance_transform_edt(padded, sampling=(pixel_m[1], pixel_m[0]))
     return dist[1:-1, 1:-1]
+
+
+def _usable_mask(dist: np.ndarray | None, edges: tuple[bool, bool, bool, bool], shape: tuple[int, int],
+                 pixel_m: tuple[float, float], margin_m: float, step: int) -> np.ndarray:
+    """Cells (on the grid decimated by ``step``) farther than ``margin_m`` from voids and raster edges.
+
+    ``dist`` is :func:`_usable`'s distance map, or None when the window has
+    no voids; then the distance is to the nearest raster edge among
+    ``edges``, measured from the cell centre to the edge's outer cell
+    centre row or column, as the distance transform measures it.
+    """
+    if dist is not None:
+        return dist[::step, ::step] > margin_m
+    top, bottom, left, right = edges
+    h, w = shape
+    dx, dy = pixel_m
+    rows, cols = np.arange(0, h, step), np.arange(0, w, step)
+    ok_r, ok_c = np.ones(rows.size, bool), np.ones(cols.size, bool)
+    if top:
+        ok_r &= (rows + 1) * dy > margin_m
+    if bottom:
+        ok_r &= (h - rows) * dy > margin_m
+    if left:
+        ok_c &= (cols + 1) * dx > margin_m
+    if right:
+        ok_c &= (w - cols) * dx > margin_m
+    return ok_r[:, None] & ok_c[None, :]
 
 
 def _window_level_sets(plan: RunPlan, values: np.ndarray, valid: np.ndarray, edges):
@@ -267,14 +294,12 @@ def _window_level_sets(plan: RunPlan, values: np.ndarray, valid: np.ndarray, edg
             fine_filled = fill_voids(arr, valid, sp.sigma_rc, truncate=s.truncate)
         if f == 1:
             filled = fine_filled
-            usable = np.ones(valid.shape, bool) if dist is None else dist > s.void_margin_sigmas * sp.sigma_m
             pixel, blur = plan.pixel_m, 0.0
         else:
             level, level_valid = pyramid.level(f)
             filled = fill_voids(level, level_valid, (sp.sigma_rc[0] / f, sp.sigma_rc[1] / f), truncate=s.truncate)
-            usable = (np.ones(level.shape, bool) if dist is None
-                      else dist[::f, ::f] > s.void_margin_sigmas * sp.sigma_m)
             pixel, blur = (plan.pixel_m[0] * f, plan.pixel_m[1] * f), LEVEL_BLUR_PX
+        usable = _usable_mask(dist, edges, valid.shape, plan.pixel_m, s.void_margin_sigmas * sp.sigma_m, f)
         for di, det in enumerate(plan.detectors):
             ls = det.run(filled, sp.sigma_m, pixel, truncate=s.truncate, rounding_std=plan.rounding_std,
                          prior_blur_px=blur)
@@ -292,8 +317,9 @@ def _noise_from(level_sets, tile: Tile, per_block: int) -> dict:
         (r0, c0), core = _coarse_window(tile, f)
         sl = (slice(core.row0 - r0, core.row1 - r0), slice(core.col0 - c0, core.col1 - c0))
         ok = usable[sl]
-        if ls.allowed is not None:
-            ok = ok & ls.allowed[sl]
+        where = ls.allowed if ls.noise_mask is None else ls.noise_mask
+        if where is not None:
+            ok = ok & where[sl]
         idx = np.flatnonzero(ok.ravel())
         step = max(1, idx.size // max(1, per_block))
         idx = idx[::step]

@@ -47,13 +47,16 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import ndimage
-
+from ._kernels import correlate1d
 from .scalespace import gaussian_kernel1d
 
 #: A scale is filtered on the coarsest level where sigma spans at least this many cells (so its
-#: residual filter, ``sqrt((sigma / f)**2 - 1)``, is at least sqrt(3) = 1.73 cells wide).
-MIN_DECIMATED_SIGMA_PX = 2.0
+#: residual filter, ``sqrt((sigma / f)**2 - 1)``, is at least sqrt(8) = 2.8 cells wide).  With 2
+#: cells (residual 1.7) the response and its noise level matched full resolution to 0.2 %, but the
+#: cubic sampling of the strength between cells read a few per cent low on narrow strength
+#: profiles, so 5 to 15 % less line length passed the thresholds at 40 to 160 m on our sample and
+#: benchmark DEMs; with 3 cells the written length matched within 1 % (our measurement).
+MIN_DECIMATED_SIGMA_PX = 3.0
 #: Blur of the first halving, in fine pixels; then each level carries one of its own cells of blur.
 FIRST_HALVING_BLUR_PX = 2.0
 #: Blur of every later halving, in cells of the level being halved.
@@ -123,10 +126,9 @@ def halve(image: np.ndarray, blur_px: float, *, truncate: float = 4.0) -> np.nda
     ndarray, shape (ceil(rows / 2), ceil(cols / 2)), float32
         Cells ``(2 i, 2 j)`` of the blurred image (borders by mirror reflection).
     """
-    k = gaussian_kernel1d(blur_px, 0, truncate).astype(np.float32)
-    tmp = ndimage.correlate1d(image, k, axis=1, output=np.float32, mode="reflect")[:, ::2]
-    tmp = np.ascontiguousarray(tmp)
-    return np.ascontiguousarray(ndimage.correlate1d(tmp, k, axis=0, output=np.float32, mode="reflect")[::2, :])
+    k = gaussian_kernel1d(blur_px, 0, truncate)
+    tmp = np.ascontiguousarray(correlate1d(image, k, 1)[:, ::2])
+    return np.ascontiguousarray(correlate1d(tmp, k, 0)[::2, :])
 
 
 class Pyramid:

@@ -19,8 +19,8 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import ndimage
 
+from ._kernels import correlate1d
 from .settings import DOG_RATIO
 
 
@@ -109,11 +109,9 @@ def gaussian_derivative(image: np.ndarray, sigma_rc: tuple[float, float], order_
         Derivative per pixel squared (pixel units); borders by mirror
         reflection (``mode="reflect"``).
     """
-    img = np.asarray(image, dtype=np.float32)
-    k0 = gaussian_kernel1d(sigma_rc[0], order_rc[0], truncate).astype(np.float32)
-    k1 = gaussian_kernel1d(sigma_rc[1], order_rc[1], truncate).astype(np.float32)
-    tmp = ndimage.correlate1d(img, k1, axis=1, output=np.float32, mode="reflect")
-    return ndimage.correlate1d(tmp, k0, axis=0, output=np.float32, mode="reflect")
+    k0 = gaussian_kernel1d(sigma_rc[0], order_rc[0], truncate)
+    k1 = gaussian_kernel1d(sigma_rc[1], order_rc[1], truncate)
+    return correlate1d(correlate1d(image, k1, 1), k0, 0)
 
 
 def log_response(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float],
@@ -209,8 +207,8 @@ def fill_voids(values: np.ndarray, valid: np.ndarray, sigma_rc: tuple[float, flo
         return np.asarray(values, dtype=np.float32)
     w = valid.astype(np.float32)
     fw = np.where(valid, values, 0).astype(np.float32)
-    num = ndimage.gaussian_filter(fw, sigma_rc, mode="reflect", truncate=truncate, output=np.float32)
-    den = ndimage.gaussian_filter(w, sigma_rc, mode="reflect", truncate=truncate, output=np.float32)
+    num = gaussian_derivative(fw, sigma_rc, (0, 0), truncate=truncate)
+    den = gaussian_derivative(w, sigma_rc, (0, 0), truncate=truncate)
     out = fw
     fill = ~valid & (den > 1e-3)
     out[fill] = num[fill] / den[fill]

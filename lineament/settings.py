@@ -154,8 +154,8 @@ class ExtractionSettings:
         Accept a raster without georeferencing and work in pixel units.
     full_resolution : bool
         Filter every scale on the full-resolution grid.  By default a scale
-        of 4 pixels or more is filtered on a decimated grid where it spans 2
-        to 4 cells (:mod:`lineament.pyramid`), which is several times faster
+        of 6 pixels or more is filtered on a decimated grid where it spans 3
+        to 6 cells (:mod:`lineament.pyramid`), which is several times faster
         and gives the same lines to a small fraction of a pixel.
     """
 

@@ -78,14 +78,15 @@ def properties_without_source(result) -> list[dict]:
 
 
 # ---------------------------------------------------------------------------- shifts
-SHIFT_SETTINGS = ExtractionSettings(scales="20,40")
-#: The 40 m scale (4 px) is filtered on the grid decimated by 2 (lineament.pyramid), which samples
+SHIFT_SETTINGS = ExtractionSettings(scales="20,60")
+#: The 60 m scale (6 px) is filtered on the grid decimated by 2 (lineament.pyramid), which samples
 #: even rows and columns; shifts by even pixel counts keep that lattice, odd ones do not.
-FULL_SHIFT_SETTINGS = ExtractionSettings(scales="20,40", full_resolution=True)
+FULL_SHIFT_SETTINGS = ExtractionSettings(scales="20,60", full_resolution=True)
 #: Void frame around the valid cells, wider than the largest shift plus the reach of the
-#: filling and filter kernels from the valid edge (3 + 4 sigma at sigma 4 px, plus one pixel),
+#: filling and filter kernels from the valid edge (3 + 4 sigma at sigma 6 px, plus 8 px for the
+#: decimation blur and one pixel),
 #: so the filled values seen by usable cells never depend on where the raster edge is.
-FRAME = 40
+FRAME = 56
 MAX_SHIFT = 8
 
 
@@ -119,7 +120,7 @@ def test_whole_pixel_shift_leaves_lines_in_place(seed, angle, offset, size, dr, 
 
 
 def test_odd_shift_moves_decimated_lines_by_a_fraction_of_a_pixel():
-    # An odd shift samples the other phase of the decimated grid of the 40 m scale, so the lines
+    # An odd shift samples the other phase of the decimated grid of the 60 m scale, so the lines
     # are not identical, but the blurred, band-limited response is nearly the same function of
     # map position: lines found at both phases lie within a small fraction of a pixel of each
     # other (the accuracy target for the decimated path is 0.25 px, median).
@@ -134,8 +135,8 @@ def test_odd_shift_moves_decimated_lines_by_a_fraction_of_a_pixel():
     g_shifted = GeoRef(g.transform @ Affine.translation(-3, -1), g.crs, n, n)
     a = extract_array(base, g, SHIFT_SETTINGS)
     b = extract_array(shifted, g_shifted, SHIFT_SETTINGS)
-    la = [ln.geometry for ln in a.lines if ln.scale_m == 40.0]
-    lb = [ln.geometry for ln in b.lines if ln.scale_m == 40.0]
+    la = [ln.geometry for ln in a.lines if ln.scale_m == 60.0]
+    lb = [ln.geometry for ln in b.lines if ln.scale_m == 60.0]
     assert la and lb
     verts = points(np.concatenate([np.asarray(geom.segmentize(PIXEL).coords) for geom in lb]))
     d_px = distance(verts, union_all(la)) / PIXEL
@@ -191,10 +192,10 @@ def test_quarter_turn_rotates_edges(seed, angle, offset, height, width, k, opera
     # same count, same vertices rotated on the map, same lengths, grid azimuths turned by 90 degrees
     # per quarter turn.  The separable float32 passes run along columns, then rows; after a turn
     # they round in the other order, which moves vertices by ~1e-7 pixel (1e-6 m seen), hence 1e-4 m.
-    # The decimated grid of the 40 m scale (every second row and column, lineament.pyramid) turns
+    # The decimated grid of the 60 m scale (every second row and column, lineament.pyramid) turns
     # onto itself only when the side that becomes the rows has an odd number of cells (old column
     # W - 1 - 2 m must be even), so decimated runs use odd sizes; full-resolution runs any size.
-    s = ExtractionSettings(scales="20,40", features="edges", operator=operator, full_resolution=full)
+    s = ExtractionSettings(scales="20,60", features="edges", operator=operator, full_resolution=full)
     if not full:
         height, width = height | 1, width | 1
     z = scene(height, width, seed=seed, angle_deg=angle, offset_px=offset)
@@ -228,8 +229,8 @@ def test_quarter_turn_keeps_noise_level():
     # half turn, which negates both).  The pipeline pools gx and gy and takes 1.4826 times their
     # median absolute value (Rousseeuw and Croux 1993): a spread about zero, which negating one
     # component does not change (about the pooled median it would, with a planted step).
-    # 161 cells a side: the decimated grid of the 40 m scale turns onto itself (see above).
-    s = ExtractionSettings(scales="20,40", features="edges")
+    # 161 cells a side: the decimated grid of the 60 m scale turns onto itself (see above).
+    s = ExtractionSettings(scales="20,60", features="edges")
     z = scene(161, 161, seed=2, angle_deg=30.0, offset_px=3.3)
     g = utm_georef(161, 161)
     a = extract_array(z, g, s)
