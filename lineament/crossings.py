@@ -27,7 +27,6 @@ from typing import Iterator
 import numpy as np
 from skimage.measure import find_contours
 
-from ._fasttrace import candidate_pixels
 from ._kernels import correlate1d
 
 #: Consistency factor turning a median absolute deviation into a Gaussian
@@ -281,10 +280,11 @@ def trace_level_set(field: np.ndarray, strength: np.ndarray, usable: np.ndarray,
                     offset: tuple[int, int] = (0, 0), core: Core | None = None):
     """Trace the zero level set of ``field`` on one window; keep strong runs.
 
-    Only the cells that can hold a kept or shared run are traced (found with
-    whole-array operations, :func:`lineament._fasttrace.candidate_pixels`);
-    the result is the one a trace of every crossing of the window gives
-    (:func:`trace_level_set_reference`).
+    Runs compiled code (:func:`lineament._compiled_trace.trace_compiled`):
+    marching squares, vertex strengths, hysteresis and ownership in one
+    pass, with only the kept runs returned to Python.  The result is, vertex
+    for vertex, the one :func:`trace_level_set_reference` gives with
+    ``skimage.measure.find_contours`` and a Python loop over contours.
 
     Parameters
     ----------
@@ -312,23 +312,22 @@ def trace_level_set(field: np.ndarray, strength: np.ndarray, usable: np.ndarray,
         Owned parts of runs that continue into other windows; the rule is
         applied after :func:`stitch_fragments` has joined them.
     """
-    return _trace(field, strength, usable, high=high, low=low, sustained=sustained,
-                  sustained_length_px=sustained_length_px, allowed=allowed, offset=offset, core=core,
-                  select=True)
+    from ._compiled_trace import trace_compiled  # imports this module's Core and Fragment
+
+    return trace_compiled(field, strength, usable, high=high, low=low, sustained=sustained,
+                          sustained_length_px=sustained_length_px, allowed=allowed, offset=offset, core=core)
 
 
 def trace_level_set_reference(field: np.ndarray, strength: np.ndarray, usable: np.ndarray, *,
                               high: float, low: float, sustained: float | None = None,
                               sustained_length_px: float = np.inf, allowed: np.ndarray | None = None,
                               offset: tuple[int, int] = (0, 0), core: Core | None = None):
-    """:func:`trace_level_set` tracing every crossing of the window (slow; for tests and benchmarks)."""
+    """:func:`trace_level_set` with ``skimage.measure.find_contours`` and a Python loop (slow; the reference)."""
     return _trace(field, strength, usable, high=high, low=low, sustained=sustained,
-                  sustained_length_px=sustained_length_px, allowed=allowed, offset=offset, core=core,
-                  select=False)
+                  sustained_length_px=sustained_length_px, allowed=allowed, offset=offset, core=core)
 
 
-def _trace(field, strength, usable, *, high, low, sustained, sustained_length_px, allowed, offset, core,
-           select: bool):
+def _trace(field, strength, usable, *, high, low, sustained, sustained_length_px, allowed, offset, core):
     pieces: list = []
     fragments: list[Fragment] = []
     mask = usable if allowed is None else (usable & allowed)
@@ -337,15 +336,7 @@ def _trace(field, strength, usable, *, high, low, sustained, sustained_length_px
     h, w = field.shape
     if core is None:
         core = Core(offset[0], offset[1], offset[0] + h, offset[1] + w)
-    if select:
-        core_local = (core.row0 - offset[0], core.col0 - offset[1], core.row1 - offset[0], core.col1 - offset[1])
-        px = candidate_pixels(field, strength, mask, high=high, low=low, sustained=sustained,
-                              sustained_length_px=sustained_length_px, core_local=core_local)
-        if px is None:
-            return pieces, fragments
-        contours = find_contours(field, 0.0, mask=px)
-    else:
-        contours = find_contours(field, 0.0)
+    contours = find_contours(field, 0.0)
     contours = [c for c in contours if c.shape[0] >= 2]
     if not contours:
         return pieces, fragments

@@ -1,10 +1,11 @@
-"""The selective tracer gives the pieces a trace of every crossing gives.
+"""The production tracer gives the pieces a trace of every crossing gives.
 
 The reference is :func:`trace_level_set_reference`, which runs
 ``skimage.measure.find_contours`` (scikit-image) over the whole window and
-applies the hysteresis rule to every contour; :func:`trace_level_set` traces
-only the cells its whole-array pre-selection keeps.  Both must return the
-same pieces and fragments, vertex for vertex.
+applies the hysteresis rule to every contour in Python;
+:func:`trace_level_set` runs the compiled tracer
+(:mod:`lineament._compiled_trace`).  Both must return the same pieces and
+fragments, vertex for vertex.
 """
 
 from __future__ import annotations
@@ -15,11 +16,9 @@ import rasterio
 from scipy import ndimage
 
 from conftest import SAMPLES
-from lineament._fasttrace import CUBIC_POSITIVE_GAIN, candidate_pixels
 from lineament.crossings import (
     MAD_TO_SIGMA,
     Core,
-    _keys_weights,
     strength_map,
     trace_level_set,
     trace_level_set_reference,
@@ -108,20 +107,3 @@ def test_selective_tracer_is_independent_of_the_window():
             for x, y in zip(a[:3], b[:3]):
                 np.testing.assert_allclose(x, y, rtol=0, atol=1e-9)
             assert a[3:] == b[3:]
-
-
-def test_cubic_positive_gain_bounds_keys_weights():
-    # Keys (1981), a = -1/2: the negative taps sum to -t (1 - t) / 2, so the positive ones sum to
-    # 1 + t (1 - t) / 2 <= 1.125 (at t = 1/2); checked numerically here.
-    t = np.linspace(0.0, 1.0, 2001)
-    wts = _keys_weights(t)
-    positive = np.where(wts > 0, wts, 0).sum(axis=0)
-    assert positive.max() == pytest.approx(CUBIC_POSITIVE_GAIN, abs=1e-9)
-    assert np.all(positive <= CUBIC_POSITIVE_GAIN + 1e-12)
-
-
-def test_no_candidates_without_crossings():
-    z = np.ones((40, 40), np.float32)
-    s = np.ones_like(z)
-    assert candidate_pixels(z, s, np.ones(z.shape, bool), high=1.0, low=0.5, sustained=None,
-                            sustained_length_px=np.inf, core_local=(0, 0, 40, 40)) is None
