@@ -27,7 +27,7 @@ from typing import Iterator
 import numpy as np
 from skimage.measure import find_contours
 
-from ._kernels import correlate1d
+from ._kernels import gradient_and_magnitude
 
 #: Consistency factor turning a median absolute deviation into a Gaussian
 #: standard deviation (1 / Phi^-1(3/4); Rousseeuw and Croux 1993).
@@ -90,13 +90,10 @@ def strength_map(response: np.ndarray, sigma_m: float,
     gx, gy : ndarray, float32
         Gradient components of ``R`` per metre along columns and rows.
     """
-    gx = correlate1d(response, _DERIVATIVE_5, 1, mode="nearest")
-    gy = correlate1d(response, _DERIVATIVE_5, 0, mode="nearest")
-    gx /= np.float32(pixel_size_m[0])
-    gy /= np.float32(pixel_size_m[1])
-    mag = np.hypot(gx, gy)
-    mag *= np.float32(step_strength_factor(sigma_m))
-    return mag, gx, gy
+    # one compiled pass: the 5-point differences along rows and columns (border cells repeated),
+    # per metre, and their magnitude (lineament._kernels; scipy.ndimage is the reference in tests)
+    return gradient_and_magnitude(response, _DERIVATIVE_5, 1.0 / pixel_size_m[0], 1.0 / pixel_size_m[1],
+                                  step_strength_factor(sigma_m))
 
 
 def robust_noise(gx: np.ndarray, gy: np.ndarray, usable: np.ndarray, *, max_samples: int = 4_000_000) -> float:

@@ -324,7 +324,7 @@ def _noise_from(level_sets, tile: Tile, per_block: int) -> dict:
         step = max(1, idx.size // max(1, per_block))
         idx = idx[::step]
         comps = [np.asarray(c[sl]).ravel()[idx] for c in ls.noise_samples]
-        out[(si, di)] = (np.concatenate(comps).astype(np.float64) if comps else np.zeros(0), ls.noise_floor,
+        out[(si, di)] = (np.concatenate(comps).astype(np.float32) if comps else np.zeros(0, np.float32), ls.noise_floor,
                          ls.noise_factor)
     return out
 
@@ -354,25 +354,71 @@ def _profile_sum(plan: RunPlan, filled: np.ndarray, tile: Tile, kind: str, rows:
     return np.append(prof.sum(axis=1), b - a)
 
 
-def _trace_from(plan: RunPlan, level_sets, tile: Tile) -> TileOutput:
+def _trace_one(plan: RunPlan, item, tile: Tile) -> tuple[list, list]:
+    """Trace one level set of a window: pieces it owns whole, and fragments (full-resolution indices)."""
+    si, di, ls, usable, filled, factor = item
+    th = plan.thresholds[(si, di)]
+    sp = plan.scales[si]
+    kind = plan.detectors[di].kind
+    offset, core = _coarse_window(tile, factor)
+    p, f = trace_level_set(ls.field, ls.strength, usable, high=th.high, low=th.low, sustained=th.sustained,
+                           sustained_length_px=plan.settings.min_length_sigmas * min(sp.sigma_rc) / factor,
+                           allowed=ls.allowed, offset=offset, core=core)
+    if factor != 1:  # back to full-resolution indices (exact: the factor is a power of two)
+        p = [(r * factor, c * factor, st) for r, c, st in p]
+        f = [Fragment(fr.rows * factor, fr.cols * factor, fr.strength, fr.start_open, fr.end_open) for fr in f]
     pieces, fragments = [], []
-    for si, di, ls, usable, filled, factor in level_sets:
-        th = plan.thresholds[(si, di)]
-        sp = plan.scales[si]
-        kind = plan.detectors[di].kind
-        offset, core = _coarse_window(tile, factor)
-        p, f = trace_level_set(ls.field, ls.strength, usable, high=th.high, low=th.low, sustained=th.sustained,
-                               sustained_length_px=plan.settings.min_length_sigmas * min(sp.sigma_rc) / factor,
-                               allowed=ls.allowed, offset=offset, core=core)
-        if factor != 1:  # back to full-resolution indices (exact: the factor is a power of two)
-            p = [(r * factor, c * factor, st) for r, c, st in p]
-            f = [Fragment(fr.rows * factor, fr.cols * factor, fr.strength, fr.start_open, fr.end_open) for fr in f]
-        for r, c, st in p:
-            ring = r.size > 2 and r[0] == r[-1] and c[0] == c[-1]
-            pieces.append((si, di, r, c, st, _profile_sum(plan, filled, tile, kind, r, c, False, ring)))
-        for fr in f:
-            fragments.append((si, di, fr, _profile_sum(plan, filled, tile, kind, fr.rows, fr.cols,
-                                                       fr.start_open, False)))
+    for r, c, st in p:
+        ring = r.size > 2 and r[0] == r[-1] and c[0] == c[-1]
+        pieces.append((si, di, r, c, st, _profile_sum(plan, filled, tile, kind, r, c, False, ring)))
+    for fr in f:
+        fragments.append((si, di, fr, _profile_sum(plan, filled, tile, kind, fr.rows, fr.cols,
+                                                   fr.start_open, False)))
+    return pieces, fragments
+
+
+_tracer_pool: tuple[int, object] | None = None
+
+
+def _tracer_thread():
+    """One background thread per process for tracing (made again in a forked child)."""
+    global _tracer_pool
+    from concurrent.futures import ThreadPoolExecutor
+
+    if _tracer_pool is None or _tracer_pool[0] != os.getpid():
+        _tracer_pool = (os.getpid(), ThreadPoolExecutor(max_workers=1, thread_name_prefix="lineament-trace"))
+    return _tracer_pool[1]
+
+
+def _trace_from(plan: RunPlan, level_sets, tile: Tile, before=None) -> TileOutput:
+    """Trace every level set of a window, in order.
+
+    The compiled tracer releases the interpreter lock, so each level set is
+    traced on a background thread while the next one is filtered; results
+    are gathered in the order of ``level_sets``, so nothing depends on timing.
+    ``before(item)``, if given, runs on each item first (in this thread).
+    """
+    pieces, fragments = [], []
+    pending = None
+    try:
+        for item in level_sets:
+            if before is not None:
+                before(item)
+            fut = _tracer_thread().submit(_trace_one, plan, item, tile)
+            del item
+            if pending is not None:
+                p, f = pending.result()
+                pieces.extend(p)
+                fragments.extend(f)
+            pending = fut
+        if pending is not None:
+            p, f = pending.result()
+            pieces.extend(p)
+            fragments.extend(f)
+            pending = None
+    finally:
+        if pending is not None:  # an error in this thread: let the running trace finish first
+            pending.exception()
     return TileOutput(pieces, fragments)
 
 
@@ -385,6 +431,17 @@ def run_tile_task(task) -> object:
     return _trace_tile(plan, tile, values, valid)
 
 
+def _median_abs(values: np.ndarray) -> float:
+    """``np.median(np.abs(values))`` for float32 values, by partial sorting in float32 (same result, less time)."""
+    a = np.abs(np.asarray(values, dtype=np.float32))
+    n = a.size
+    k = n // 2
+    if n % 2:
+        return float(np.partition(a, k)[k])
+    part = np.partition(a, k)  # part[:k] holds the k smallest, so the one below the middle is their largest
+    return 0.5 * (float(part[:k].max()) + float(part[k]))
+
+
 def _noise_thresholds(settings: ExtractionSettings, samples: list[dict], key: tuple[int, int]) -> Thresholds:
     """Thresholds for one scale and detector from the noise samples of every block."""
     parts = [smp[key] for smp in samples]
@@ -395,7 +452,7 @@ def _noise_thresholds(settings: ExtractionSettings, samples: list[dict], key: tu
         # The components have zero mean on a background without preferred direction, so the
         # spread is taken about zero: a quarter turn of the raster (which negates one component)
         # then leaves the noise level unchanged.
-        robust = float(MAD_TO_SIGMA * np.median(np.abs(comps))) * factor
+        robust = float(MAD_TO_SIGMA * _median_abs(comps)) * factor
     return _thresholds(settings, max(robust, floor))
 
 
@@ -426,6 +483,24 @@ def serial_executor(tasks: list, on_done: Callable[[int, object], None] | None =
     return out
 
 
+def load_compiled_code() -> None:
+    """Load (or, the first time after installing, compile) the compiled kernels and tracer.
+
+    Each process pays this once, about half a second from numba's cache;
+    calling it before forking worker processes saves it in every worker.
+    """
+    from ._kernels import correlate1d
+
+    probe = np.linspace(-1.0, 1.0, 64, dtype=np.float32).reshape(8, 8)
+    for axis in (0, 1):
+        correlate1d(probe, np.array([0.25, 0.5, 0.25]), axis)
+        correlate1d(probe, np.array([-0.5, 0.0, 0.5]), axis)
+    from .crossings import strength_map
+
+    strength, _, _ = strength_map(probe, 1.0, (1.0, 1.0))
+    trace_level_set(probe, strength, np.ones(probe.shape, bool), high=0.0, low=0.0)
+
+
 def process_executor(workers: int) -> Executor:
     """Run tasks in ``workers`` local processes; results in task order."""
     from concurrent.futures import ProcessPoolExecutor, as_completed
@@ -434,6 +509,7 @@ def process_executor(workers: int) -> Executor:
         if workers <= 1 or len(tasks) <= 1:
             return serial_executor(tasks, on_done)
         out: list = [None] * len(tasks)
+        load_compiled_code()  # once here, so forked workers start with it loaded
         with ProcessPoolExecutor(max_workers=min(workers, len(tasks))) as pool:
             futures = {pool.submit(run_tile_task, t): k for k, t in enumerate(tasks)}
             try:
@@ -649,16 +725,15 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
             values, valid = source.read(tile.window)
             plan = RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset, rounding_std,
                            {}, search)
-            pieces, fragments = [], []
-            for item in _window_level_sets(plan, values, valid, tile.edges(georef.shape)):
+            def set_thresholds(item) -> None:
                 samples = [_noise_from([item], Tile(b.index, b.core, tile.window), per_block) for b in blocks]
                 plan.thresholds[item[:2]] = _noise_thresholds(settings, samples, item[:2])
-                out = _trace_from(plan, [item], tile)
-                pieces.extend(out.pieces)
-                fragments.extend(out.fragments)
+
+            out = _trace_from(plan, _window_level_sets(plan, values, valid, tile.edges(georef.shape)), tile,
+                              before=set_thresholds)
             if progress:
                 progress(1, 1)
-            return _finish([plan], bands, [[TileOutput(pieces, fragments)]], name, 1, time.perf_counter() - t0)
+            return _finish([plan], bands, [[out]], name, 1, time.perf_counter() - t0)
         samples = None if cache is None else cache.load_noise(band_no)
         if samples is None:
             samples = executor([task("noise", plan, b, per_block) for b in blocks], None)

@@ -61,3 +61,20 @@ def test_bad_arguments_are_refused():
         correlate1d(img, np.ones(3), 2)
     with pytest.raises(ValueError):
         correlate1d(np.zeros(4, np.float32), np.ones(3), 0)
+
+
+@pytest.mark.parametrize("shape", [(1, 1), (3, 9), (300, 257)])
+def test_gradient_and_magnitude_matches_scipy_differences(shape):
+    # Reference: scipy.ndimage.correlate1d with mode="nearest" and numpy.hypot
+    from lineament._kernels import gradient_and_magnitude
+
+    rng = np.random.default_rng(shape[0])
+    img = rng.normal(size=shape).astype(np.float32)
+    stencil = np.array([1.0, -8.0, 0.0, 8.0, -1.0]) / 12.0
+    mag, gx, gy = gradient_and_magnitude(img, stencil, 0.1, 0.05, 3.0)
+    rx = ndimage.correlate1d(img.astype(np.float64), stencil, axis=1, mode="nearest") * 0.1
+    ry = ndimage.correlate1d(img.astype(np.float64), stencil, axis=0, mode="nearest") * 0.05
+    tol = 1e-6 * np.abs(img).max()
+    np.testing.assert_allclose(gx, rx, rtol=1e-6, atol=tol)
+    np.testing.assert_allclose(gy, ry, rtol=1e-6, atol=tol)
+    np.testing.assert_allclose(mag, 3.0 * np.hypot(rx, ry), rtol=1e-5, atol=3 * tol)
