@@ -5,6 +5,7 @@ from __future__ import annotations
 import os
 import signal
 import sys
+import threading
 
 
 def _interrupted_while_starting(signum, frame):  # pragma: no cover - timing dependent
@@ -49,5 +50,18 @@ cli.add_command(compare)
 cli.add_command(report)
 
 
+def main() -> None:
+    """Run the command line; once a command has finished, Ctrl-C no longer interrupts.
+
+    The output is complete by then, and an interrupt during interpreter
+    shutdown would otherwise end the process by the signal, with no message.
+    """
+    try:
+        cli()
+    finally:
+        if threading.current_thread() is threading.main_thread():
+            signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
 if __name__ == "__main__":  # pragma: no cover
-    cli()
+    main()
