@@ -276,46 +276,79 @@ def _usable_mask(dist: np.ndarray | None, edges: tuple[bool, bool, bool, bool], 
     return ok_r[:, None] & ok_c[None, :]
 
 
-def _window_level_sets(plan: RunPlan, values: np.ndarray, valid: np.ndarray, edges):
-    """Yield (scale index, detector index, LevelSet, usable mask, filled window, factor) for one window.
+def _scale_halo(plan: RunPlan, sp: ScalePlan) -> tuple[int, int]:
+    """Halo one scale needs around a core (as :func:`_halo`, for this scale alone; a multiple of its factor)."""
+    s = plan.settings
+    reach = max(d.reach_factor for d in plan.detectors) * s.truncate
+    out = []
+    for axis in (0, 1):
+        need = (int(math.ceil((s.truncate + reach + s.void_margin_sigmas) * sp.sigma_rc[axis]))
+                + 6 * sp.factor + pyramid_reach(sp.factor, s.truncate))
+        out.append(sp.factor * int(math.ceil(need / sp.factor)))
+    return (out[0], out[1])
 
-    A scale with ``factor > 1`` is filtered on the window's decimated grid
-    (its LevelSet and usable mask are on that grid); the filled window is the
+
+def _window_level_sets(plan: RunPlan, tile: Tile, values: np.ndarray, valid: np.ndarray):
+    """Yield (scale index, detector index, LevelSet, usable mask, filled window, factor, sub-tile) for one window.
+
+    Each scale is filtered on the part of the window its own halo needs
+    around the core (the sub-tile's window; the whole window when best
+    scales are searched, whose widest sigma needs it): a fine scale does not
+    pay for the halo of the coarsest.  Values at core cells are the same
+    either way (each depends only on cells within the scale's halo).  A
+    scale with ``factor > 1`` is filtered on the decimated grid (its
+    LevelSet and usable mask are on that grid); the filled window is the
     full-resolution one, made only when best scales are searched.
     """
     s = plan.settings
+    shape = plan.georef.shape
     arr = _centre(values, valid, plan.offset, s.z_factor)
-    dist = _usable(valid, edges, plan.pixel_m)
+    dist = _usable(valid, tile.edges(shape), plan.pixel_m)
     pyramid = Pyramid(arr, valid, truncate=s.truncate)
+    w0r, w0c, w1r, w1c = tile.window
+    c = tile.core
     for si, sp in enumerate(plan.scales):
         f = sp.factor
+        if plan.search_sigmas:
+            sub = tile
+        else:
+            hr, hc = _scale_halo(plan, sp)
+            sub = Tile(tile.index, c, (max(w0r, c.row0 - hr), max(w0c, c.col0 - hc),
+                                       min(w1r, c.row1 + hr), min(w1c, c.col1 + hc)))
+        r0, c0, r1, c1 = (sub.window[0] - w0r, sub.window[1] - w0c, sub.window[2] - w0r, sub.window[3] - w0c)
+        sub_valid = valid[r0:r1, c0:c1]
+        sub_dist = None if dist is None else dist[r0:r1, c0:c1]
         fine_filled = None
         if f == 1 or plan.search_sigmas:
-            fine_filled = fill_voids(arr, valid, sp.sigma_rc, truncate=s.truncate)
+            fine_filled = fill_voids(arr[r0:r1, c0:c1], sub_valid, sp.sigma_rc, truncate=s.truncate)
         if f == 1:
             filled = fine_filled
             pixel, blur = plan.pixel_m, 0.0
         else:
             level, level_valid = pyramid.level(f)
-            filled = fill_voids(level, level_valid, (sp.sigma_rc[0] / f, sp.sigma_rc[1] / f), truncate=s.truncate)
+            cut = (slice(r0 // f, -(-r1 // f)), slice(c0 // f, -(-c1 // f)))
+            filled = fill_voids(level[cut], level_valid[cut], (sp.sigma_rc[0] / f, sp.sigma_rc[1] / f),
+                                truncate=s.truncate)
             pixel, blur = (plan.pixel_m[0] * f, plan.pixel_m[1] * f), LEVEL_BLUR_PX
-        usable = _usable_mask(dist, edges, valid.shape, plan.pixel_m, s.void_margin_sigmas * sp.sigma_m, f)
+        usable = _usable_mask(sub_dist, sub.edges(shape), sub_valid.shape, plan.pixel_m,
+                              s.void_margin_sigmas * sp.sigma_m, f)
         for di, det in enumerate(plan.detectors):
             ls = det.run(filled, sp.sigma_m, pixel, truncate=s.truncate, rounding_std=plan.rounding_std,
                          prior_blur_px=blur)
-            yield si, di, ls, usable, fine_filled, f
+            yield si, di, ls, usable, fine_filled, f, sub
 
 
 def _noise_samples(plan: RunPlan, tile: Tile, values, valid, per_block: int) -> dict:
     """Noise components at usable core cells of one block, subsampled on a fixed lattice."""
-    return _noise_from(_window_level_sets(plan, values, valid, tile.edges(plan.georef.shape)), tile, per_block)
+    return _noise_from(_window_level_sets(plan, tile, values, valid), tile.core, per_block)
 
 
-def _noise_from(level_sets, tile: Tile, per_block: int) -> dict:
+def _noise_from(level_sets, core: Core, per_block: int) -> dict:
+    """Noise components of each level set at usable cells of ``core`` (which its window holds)."""
     out: dict = {}
-    for si, di, ls, usable, _, f in level_sets:
-        (r0, c0), core = _coarse_window(tile, f)
-        sl = (slice(core.row0 - r0, core.row1 - r0), slice(core.col0 - c0, core.col1 - c0))
+    for si, di, ls, usable, _, f, sub in level_sets:
+        (r0, c0), cc = _coarse_window(Tile(sub.index, core, sub.window), f)
+        sl = (slice(cc.row0 - r0, cc.row1 - r0), slice(cc.col0 - c0, cc.col1 - c0))
         ok = usable[sl]
         where = ls.allowed if ls.noise_mask is None else ls.noise_mask
         if where is not None:
@@ -323,14 +356,14 @@ def _noise_from(level_sets, tile: Tile, per_block: int) -> dict:
         idx = np.flatnonzero(ok.ravel())
         step = max(1, idx.size // max(1, per_block))
         idx = idx[::step]
-        comps = [np.asarray(c[sl]).ravel()[idx] for c in ls.noise_samples]
+        comps = [np.asarray(x[sl]).ravel()[idx] for x in ls.noise_samples]
         out[(si, di)] = (np.concatenate(comps).astype(np.float32) if comps else np.zeros(0, np.float32), ls.noise_floor,
                          ls.noise_factor)
     return out
 
 
 def _trace_tile(plan: RunPlan, tile: Tile, values, valid) -> TileOutput:
-    return _trace_from(plan, _window_level_sets(plan, values, valid, tile.edges(plan.georef.shape)), tile)
+    return _trace_from(plan, _window_level_sets(plan, tile, values, valid))
 
 
 def _profile_sum(plan: RunPlan, filled: np.ndarray, tile: Tile, kind: str, rows: np.ndarray, cols: np.ndarray,
@@ -354,9 +387,9 @@ def _profile_sum(plan: RunPlan, filled: np.ndarray, tile: Tile, kind: str, rows:
     return np.append(prof.sum(axis=1), b - a)
 
 
-def _trace_one(plan: RunPlan, item, tile: Tile) -> tuple[list, list]:
+def _trace_one(plan: RunPlan, item) -> tuple[list, list]:
     """Trace one level set of a window: pieces it owns whole, and fragments (full-resolution indices)."""
-    si, di, ls, usable, filled, factor = item
+    si, di, ls, usable, filled, factor, tile = item
     th = plan.thresholds[(si, di)]
     sp = plan.scales[si]
     kind = plan.detectors[di].kind
@@ -390,7 +423,7 @@ def _tracer_thread():
     return _tracer_pool[1]
 
 
-def _trace_from(plan: RunPlan, level_sets, tile: Tile, before=None) -> TileOutput:
+def _trace_from(plan: RunPlan, level_sets, before=None) -> TileOutput:
     """Trace every level set of a window, in order.
 
     The compiled tracer releases the interpreter lock, so each level set is
@@ -404,7 +437,7 @@ def _trace_from(plan: RunPlan, level_sets, tile: Tile, before=None) -> TileOutpu
         for item in level_sets:
             if before is not None:
                 before(item)
-            fut = _tracer_thread().submit(_trace_one, plan, item, tile)
+            fut = _tracer_thread().submit(_trace_one, plan, item)
             del item
             if pending is not None:
                 p, f = pending.result()
@@ -726,11 +759,10 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
             plan = RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset, rounding_std,
                            {}, search)
             def set_thresholds(item) -> None:
-                samples = [_noise_from([item], Tile(b.index, b.core, tile.window), per_block) for b in blocks]
+                samples = [_noise_from([item], b.core, per_block) for b in blocks]
                 plan.thresholds[item[:2]] = _noise_thresholds(settings, samples, item[:2])
 
-            out = _trace_from(plan, _window_level_sets(plan, values, valid, tile.edges(georef.shape)), tile,
-                              before=set_thresholds)
+            out = _trace_from(plan, _window_level_sets(plan, tile, values, valid), before=set_thresholds)
             if progress:
                 progress(1, 1)
             return _finish([plan], bands, [[out]], name, 1, time.perf_counter() - t0)

@@ -72,6 +72,25 @@ def test_lines_do_not_depend_on_tile_size(scene, whole, tile_size):
     _assert_same_lines(whole, tiled)
 
 
+@pytest.mark.parametrize("tile_size", [64, 96, 200])
+@pytest.mark.parametrize("features", ["edges", "edges,valleys,ridges"])
+def test_decimated_scales_do_not_depend_on_tile_size(scene, tile_size, features):
+    # 60 and 120 m (6 and 12 px) are filtered on grids decimated by 2 and 4 (lineament.pyramid); each
+    # scale is filtered on its own halo around the core, the 20 m scale on a much smaller window
+    # than the 120 m one.  Tile sizes are rounded up to multiples of 4, so 96 stays and 200 stays.
+    # Noise thresholds (measured on fixed blocks) and, so that the 120 m scale has lines on this
+    # small scene, absolute ones.
+    z, valid, g = scene
+    for s, coarsest_with_lines in ((ExtractionSettings(scales="20,60,120", features=features), 60.0),
+                                   (ExtractionSettings(scales="20,60,120", features=features, high_threshold=6.0,
+                                                       low_threshold=2.0), 120.0)):
+        whole = extract_array(z, g, s, valid=valid, tile_size=4096)
+        tiled = extract_array(z, g, s, valid=valid, tile_size=tile_size)
+        assert tiled.tiles > 1 and whole.tiles == 1
+        assert any(ln.scale_m == coarsest_with_lines for ln in whole.lines)
+        _assert_same_lines(whole, tiled)
+
+
 def test_lines_cross_tile_seams_whole():
     # a diagonal scarp through the corner shared by four 160-px tiles comes out as one line
     n = 320
