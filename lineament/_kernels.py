@@ -190,21 +190,31 @@ def correlate1d(image: np.ndarray, kernel: np.ndarray, axis: int, *, mode: str =
 @numba.njit(cache=True, nogil=True)
 def _gradient_passes(response, stencil, scale_x, scale_y, factor, gx, gy, mag, row0, row1):  # pragma: no cover
     h, w = response.shape
-    r = stencil.size // 2
+    taps = stencil.size
+    r = taps // 2
     for i in range(row0, row1):
+        line = np.empty(w + taps - 1, np.float64)
+        acc_x = np.zeros(w, np.float64)
+        acc_y = np.zeros(w, np.float64)
         for j in range(w):
-            sx = 0.0
-            sy = 0.0
-            for t in range(stencil.size):
-                jj = min(max(j + t - r, 0), w - 1)
-                ii = min(max(i + t - r, 0), h - 1)
-                sx += stencil[t] * response[i, jj]
-                sy += stencil[t] * response[ii, j]
-            x = np.float32(np.float32(sx) * scale_x)
-            y = np.float32(np.float32(sy) * scale_y)
+            line[j + r] = response[i, j]
+        for j in range(r):
+            line[j] = response[i, 0]
+            line[w + r + j] = response[i, w - 1]
+        for t in range(taps):
+            st = stencil[t]
+            src = min(max(i + t - r, 0), h - 1)
+            for j in range(w):
+                acc_x[j] += st * line[j + t]
+                acc_y[j] += st * response[src, j]
+        for j in range(w):
+            x = np.float32(np.float32(acc_x[j]) * scale_x)
+            y = np.float32(np.float32(acc_y[j]) * scale_y)
             gx[i, j] = x
             gy[i, j] = y
-            mag[i, j] = np.float32(np.hypot(np.float32(x), np.float32(y)) * factor)
+            xd = np.float64(x)
+            yd = np.float64(y)
+            mag[i, j] = np.float32(np.float32(np.sqrt(xd * xd + yd * yd)) * factor)
 
 
 def gradient_and_magnitude(response: np.ndarray, stencil: np.ndarray, scale_x: float, scale_y: float,
@@ -227,7 +237,8 @@ def gradient_and_magnitude(response: np.ndarray, stencil: np.ndarray, scale_x: f
     magnitude, gx, gy : ndarray, float32
         ``gx = float32(correlate1d(response, stencil, 1)) * scale_x`` (float32
         product), ``gy`` likewise along columns, and
-        ``magnitude = hypot(gx, gy) * factor``.
+        ``magnitude = hypot(gx, gy) * factor`` (the root taken in float64, where
+        the squares of float32 values cannot overflow).
     """
     img = np.ascontiguousarray(response, dtype=np.float32)
     st = np.ascontiguousarray(stencil, dtype=np.float64)
@@ -248,3 +259,117 @@ def gradient_and_magnitude(response: np.ndarray, stencil: np.ndarray, scale_x: f
         for fut in futures:
             fut.result()
     return mag, gx, gy
+
+
+@numba.njit(cache=True, nogil=True)
+def _rows_pair(image, k_a, k_b, out_a, out_b, row0, row1):  # pragma: no cover - compiled
+    """Two row passes sharing one read of each row (same sums, in the same order, as two passes)."""
+    h, w = image.shape
+    taps = k_a.size
+    r = taps // 2
+    for i in range(row0, row1):
+        line = np.empty(w + taps - 1, np.float64)
+        acc_a = np.zeros(w, np.float64)
+        acc_b = np.zeros(w, np.float64)
+        for j in range(w):
+            line[j + r] = image[i, j]
+        for j in range(r):
+            line[j] = image[i, _source_index(j - r, w, 0)]
+            line[w + r + j] = image[i, _source_index(w + j, w, 0)]
+        for t in range(taps):
+            ka = k_a[t]
+            kb = k_b[t]
+            for j in range(w):
+                v = line[j + t]
+                acc_a[j] += ka * v
+                acc_b[j] += kb * v
+        for j in range(w):
+            out_a[i, j] = acc_a[j]
+            out_b[i, j] = acc_b[j]
+
+
+@numba.njit(cache=True, nogil=True)
+def _columns_laplacian(a, b, k_for_a, k_for_b, scale_b, scale_a, out, row0, row1):  # pragma: no cover
+    """``out = float32(b * k_for_b) * scale_b + float32(a * k_for_a) * scale_a`` down the columns.
+
+    Both kernels symmetric; the folded sums and the float32 roundings are
+    those of two :func:`_along_columns` passes followed by the NumPy float32
+    products and sum, so the result is bit for bit the same.
+    """
+    h, w = a.shape
+    r = k_for_a.size // 2
+    for i in range(row0, row1):
+        acc_a = np.empty(w, np.float64)
+        acc_b = np.empty(w, np.float64)
+        ka = k_for_a[r]
+        kb = k_for_b[r]
+        for j in range(w):
+            acc_a[j] = ka * a[i, j]
+            acc_b[j] = kb * b[i, j]
+        for t in range(1, r + 1):
+            ka = k_for_a[r + t]
+            kb = k_for_b[r + t]
+            hi = _source_index(i + t, h, 0)
+            lo = _source_index(i - t, h, 0)
+            for j in range(w):
+                acc_a[j] += ka * (np.float64(a[hi, j]) + np.float64(a[lo, j]))
+                acc_b[j] += kb * (np.float64(b[hi, j]) + np.float64(b[lo, j]))
+        for j in range(w):
+            out[i, j] = (np.float32(np.float32(acc_b[j]) * scale_b)
+                         + np.float32(np.float32(acc_a[j]) * scale_a))
+
+
+def _bands(fn, h: int, size: int, *args) -> None:
+    threads = kernel_threads()
+    if threads == 1 or size < _MIN_PARALLEL_CELLS or h < 2 * threads:
+        fn(*args, 0, h)
+        return
+    edges = np.linspace(0, h, threads + 1).astype(int)
+    futures = [_executor().submit(fn, *args, int(a), int(b)) for a, b in zip(edges[:-1], edges[1:])]
+    for fut in futures:
+        fut.result()
+
+
+def laplacian_passes(image: np.ndarray, row_smooth: np.ndarray, row_second: np.ndarray,
+                     col_smooth: np.ndarray, col_second: np.ndarray, scale_x: float, scale_y: float) -> np.ndarray:
+    """``scale_x * Lxx + scale_y * Lyy`` from separable kernels, in two sweeps instead of four passes.
+
+    ``Lxx`` is ``row_second`` along rows then ``col_smooth`` down columns,
+    ``Lyy`` is ``row_smooth`` along rows then ``col_second`` down columns
+    (``mode="reflect"``).  The sums, their order and the float32 roundings
+    are those of four :func:`correlate1d` passes followed by
+    ``lxx * float32(scale_x) + lyy * float32(scale_y)`` in float32, so the
+    result is bit for bit the same; each row is read once for both row
+    kernels, each column neighbourhood once for both column kernels.
+
+    Parameters
+    ----------
+    image : ndarray, shape (rows, cols), float32
+    row_smooth, row_second : ndarray
+        Kernels along rows (x, ``axis=1``), same length, odd.
+    col_smooth, col_second : ndarray
+        Kernels down columns (y, ``axis=0``), same length, odd, symmetric.
+    scale_x, scale_y : float
+        Rounded to float32 before use.
+
+    Returns
+    -------
+    ndarray, shape (rows, cols), float32
+    """
+    img = np.ascontiguousarray(image, dtype=np.float32)
+    kr_s, kr_d = (np.ascontiguousarray(k, dtype=np.float64) for k in (row_smooth, row_second))
+    kc_s, kc_d = (np.ascontiguousarray(k, dtype=np.float64) for k in (col_smooth, col_second))
+    if kr_s.size != kr_d.size or kc_s.size != kc_d.size or kr_s.size % 2 == 0 or kc_s.size % 2 == 0:
+        raise ValueError("kernel pairs must have the same odd length")
+    if kernel_symmetry(kc_s) != 1 or kernel_symmetry(kc_d) != 1:
+        raise ValueError("column kernels must be symmetric")
+    out = np.empty(img.shape, np.float32)
+    if img.size == 0:
+        return out
+    smooth = np.empty(img.shape, np.float32)
+    second = np.empty(img.shape, np.float32)
+    h = img.shape[0]
+    _bands(_rows_pair, h, img.size, img, kr_s, kr_d, smooth, second)
+    # Lxx: second derivative along rows, smoothed down columns; Lyy: the other way round
+    _bands(_columns_laplacian, h, img.size, smooth, second, kc_d, kc_s, np.float32(scale_x), np.float32(scale_y), out)
+    return out

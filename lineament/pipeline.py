@@ -410,48 +410,56 @@ def _trace_one(plan: RunPlan, item) -> tuple[list, list]:
     return pieces, fragments
 
 
+#: Level sets traced at once on background threads while the next one is filtered; each held
+#: level set costs a few arrays of the window, so this bounds the extra memory.  Two measured no
+#: faster than one on 2 cores (the filter passes already use both).
+TRACE_THREADS = 1
 _tracer_pool: tuple[int, object] | None = None
 
 
-def _tracer_thread():
-    """One background thread per process for tracing (made again in a forked child)."""
+def _tracer_threads():
+    """Background threads for tracing, one pool per process (made again in a forked child)."""
     global _tracer_pool
     from concurrent.futures import ThreadPoolExecutor
 
     if _tracer_pool is None or _tracer_pool[0] != os.getpid():
-        _tracer_pool = (os.getpid(), ThreadPoolExecutor(max_workers=1, thread_name_prefix="lineament-trace"))
+        _tracer_pool = (os.getpid(), ThreadPoolExecutor(max_workers=TRACE_THREADS,
+                                                        thread_name_prefix="lineament-trace"))
     return _tracer_pool[1]
 
 
 def _trace_from(plan: RunPlan, level_sets, before=None) -> TileOutput:
     """Trace every level set of a window, in order.
 
-    The compiled tracer releases the interpreter lock, so each level set is
-    traced on a background thread while the next one is filtered; results
-    are gathered in the order of ``level_sets``, so nothing depends on timing.
-    ``before(item)``, if given, runs on each item first (in this thread).
+    The compiled tracer releases the interpreter lock, so level sets are
+    traced on background threads (at most :data:`TRACE_THREADS` at once)
+    while the next one is filtered; results are gathered in the order of
+    ``level_sets``, so nothing depends on timing.  ``before(item)``, if
+    given, runs on each item first (in this thread).
     """
+    from collections import deque
+
     pieces, fragments = [], []
-    pending = None
+    pending: deque = deque()
+
+    def collect() -> None:
+        p, f = pending.popleft().result()
+        pieces.extend(p)
+        fragments.extend(f)
+
     try:
         for item in level_sets:
             if before is not None:
                 before(item)
-            fut = _tracer_thread().submit(_trace_one, plan, item)
+            while len(pending) >= TRACE_THREADS:
+                collect()
+            pending.append(_tracer_threads().submit(_trace_one, plan, item))
             del item
-            if pending is not None:
-                p, f = pending.result()
-                pieces.extend(p)
-                fragments.extend(f)
-            pending = fut
-        if pending is not None:
-            p, f = pending.result()
-            pieces.extend(p)
-            fragments.extend(f)
-            pending = None
+        while pending:
+            collect()
     finally:
-        if pending is not None:  # an error in this thread: let the running trace finish first
-            pending.exception()
+        for fut in pending:  # an error in this thread: let running traces finish first
+            fut.exception()
     return TileOutput(pieces, fragments)
 
 

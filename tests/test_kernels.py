@@ -78,3 +78,23 @@ def test_gradient_and_magnitude_matches_scipy_differences(shape):
     np.testing.assert_allclose(gx, rx, rtol=1e-6, atol=tol)
     np.testing.assert_allclose(gy, ry, rtol=1e-6, atol=tol)
     np.testing.assert_allclose(mag, 3.0 * np.hypot(rx, ry), rtol=1e-5, atol=3 * tol)
+
+
+@pytest.mark.parametrize("shape", [(1, 1), (4, 9), (257, 300)])
+def test_laplacian_passes_match_four_scipy_passes(shape):
+    # Reference: scipy.ndimage.correlate1d (float64), four separable passes: Lxx = second derivative
+    # along rows then smoothing down columns, Lyy the other way round (a LoG; Marr and Hildreth 1980)
+    from lineament._kernels import laplacian_passes
+
+    rng = np.random.default_rng(shape[1])
+    img = (rng.normal(size=shape) * 50).astype(np.float32)
+    kx0, kx2 = gaussian_kernel1d(2.0, 0), gaussian_kernel1d(2.0, 2)
+    ky0, ky2 = gaussian_kernel1d(3.0, 0), gaussian_kernel1d(3.0, 2)
+    out = laplacian_passes(img, kx0, kx2, ky0, ky2, 4.0, 1.5)
+    f64 = img.astype(np.float64)
+    lxx = ndimage.correlate1d(ndimage.correlate1d(f64, kx2, axis=1, mode="reflect"), ky0, axis=0, mode="reflect")
+    lyy = ndimage.correlate1d(ndimage.correlate1d(f64, kx0, axis=1, mode="reflect"), ky2, axis=0, mode="reflect")
+    ref = 4.0 * lxx + 1.5 * lyy
+    np.testing.assert_allclose(out, ref, rtol=1e-5, atol=1e-5 * np.abs(img).max())
+    with pytest.raises(ValueError):
+        laplacian_passes(img, kx0, gaussian_kernel1d(3.0, 2), ky0, ky2, 1.0, 1.0)
