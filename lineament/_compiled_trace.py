@@ -49,7 +49,15 @@ are sampled in point order (close to raster order, so the strength map is
 read cache-friendly), and with 4 taps instead of 16: a vertex lies on a
 pixel edge, where the Keys weights across the edge are exactly (0, 1, 0, 0)
 (:func:`_sample_on_edge`; all 16 taps when the strength map has a
-non-finite value, since ``0 * inf`` is not 0).
+non-finite value, since ``0 * inf`` is not 0; the taps are read without
+clamping away from the window's sides).  Along a contour, coordinates and
+strengths are gathered only for the vertices of hysteresis runs, and the
+sustained rule computes the path length only for runs whose mean strength
+passes and that are long enough to reach ``sustained_length_px``.
+
+Marching squares works a row of pixels at a time in branch-free passes:
+sign bits, crossed edges and crossing cells compacted into lists, then
+vertex coordinates (one division each) for crossed edges only.
 
 Point and contour ids are int32, so a window holds at most 2**28 pixels.
 Everything runs in one thread; numba caches the machine code
@@ -105,6 +113,24 @@ def _count_crossed_edges(field):
             if r + 1 < h and a != (field[r + 1, c] > 0.0):
                 n += 1
     return n
+
+
+@numba.njit(**_JIT)
+def _count_crossed_edges_nan(field):
+    """:func:`_count_crossed_edges`, and whether ``field`` has a NaN."""
+    h, w = field.shape
+    n = 0
+    nan = False
+    for r in range(h):
+        for c in range(w):
+            v = field[r, c]
+            a = v > 0.0
+            nan |= v != v
+            if c + 1 < w and a != (field[r, c + 1] > 0.0):
+                n += 1
+            if r + 1 < h and a != (field[r + 1, c] > 0.0):
+                n += 1
+    return n, nan
 
 
 @numba.njit(**_JIT)
@@ -368,6 +394,18 @@ _CASE_SEGMENTS = np.array([
     [2, 3, -1, -1], [0, 3, -1, -1], [2, 0, -1, -1], [-1, -1, -1, -1]], dtype=np.int64)
 
 
+@numba.njit(**_JIT)
+def _reverse(a, lo, hi):
+    """Reverse ``a[lo:hi]`` in place."""
+    hi -= 1
+    while lo < hi:
+        t = a[lo]
+        a[lo] = a[hi]
+        a[hi] = t
+        lo += 1
+        hi -= 1
+
+
 @numba.njit(error_model="numpy", **_JIT)
 def _contours_chains(field, table):
     """:func:`_contours` for fields without a vertex on a pixel centre (the usual case).
@@ -381,7 +419,8 @@ def _contours_chains(field, table):
     :func:`_contours` then replays the assembly itself.
     """
     h, w = field.shape
-    cap = _count_crossed_edges(field) + 2
+    cap, has_nan = _count_crossed_edges_nan(field)
+    cap += 2
     pt_r = np.empty(cap, np.float64)
     pt_c = np.empty(cap, np.float64)
     succ = np.full(cap, -1, np.int32)
@@ -394,74 +433,100 @@ def _contours_chains(field, table):
     up_bot = np.empty(w, np.uint8)  # field > 0 on row r0 + 1
     cases = np.empty(w, np.uint8)
     cells = np.empty(w, np.int32)
+    pos = np.empty(w, np.int32)
+    hpos = np.empty(w, np.int32)
     ids = np.empty(4, np.int32)
     npt = 0
     nseg = 0
     on_centre = False
     empty_f = np.empty(0, np.float64)
     empty_i = np.empty(0, np.int32)
-    # The loops over edges and cells avoid data-dependent branches: every candidate point is
-    # written and the counter advances only on a crossing (the arrays have a spare slot), and the
-    # cells with a crossing are compacted into a list before they are visited.  Coordinates are
+    # Each row is done in passes without data-dependent branches: the sign bits of the row, then
+    # the crossed edges compacted into a list (an edge's point id is the count of crossed edges
+    # before it, so ids come out in raster order), then coordinates for the crossed edges only, then
+    # the cases of the cells and the cells with a crossing compacted into a list.  Coordinates are
     # computed as in _fraction: a crossed edge has b != a, so the guard there never applies.
     for c in range(w):
         up_bot[c] = field[0, c] > 0.0
+    n = 0
     for c in range(w - 1):
+        h_bot[c] = npt + n
+        pos[n] = c
+        n += up_bot[c] != up_bot[c + 1]
+    for i in range(n):
+        c = pos[i]
         a = np.float64(field[0, c])
         b = np.float64(field[0, c + 1])
         x = c + (0.0 - a) / (b - a)
-        pt_r[npt] = 0.0
-        pt_c[npt] = x
-        h_bot[c] = npt
-        cross = up_bot[c] != up_bot[c + 1]
-        on_centre |= cross and x == math.floor(x)
-        npt += cross
+        pt_r[npt + i] = 0.0
+        pt_c[npt + i] = x
+        on_centre |= x == math.floor(x)
+    npt += n
     for r0 in range(h - 1):
         r1 = r0 + 1
         h_top, h_bot = h_bot, h_top
         up_top, up_bot = up_bot, up_top
         fr1 = r1 * 1.0
+        fr0 = r0 * 1.0
         for c in range(w):
             up_bot[c] = field[r1, c] > 0.0
+        # one pass over the row: crossed horizontal edges on row r1 (ids from npt), crossed vertical
+        # edges between rows r0 and r1 (ids after those, stored relative), cells with a crossing;
+        # three independent counters
+        nh = 0
+        nv = 0
+        ncell = 0
         for c in range(w - 1):
+            t0 = up_top[c]
+            t1 = up_top[c + 1]
+            b0 = up_bot[c]
+            b1 = up_bot[c + 1]
+            h_bot[c] = npt + nh
+            hpos[nh] = c
+            nh += b0 != b1
+            v_row[c] = nv
+            pos[nv] = c
+            nv += t0 != b0
+            case = t0 | (t1 << 1) | (b0 << 2) | (b1 << 3)
+            cases[ncell] = case
+            cells[ncell] = c
+            ncell += (case != 0) & (case != 15)
+        c = w - 1
+        v_row[c] = nv
+        pos[nv] = c
+        nv += up_top[c] != up_bot[c]
+        for i in range(nh):
+            c = hpos[i]
             a = np.float64(field[r1, c])
             b = np.float64(field[r1, c + 1])
             x = c + (0.0 - a) / (b - a)
-            pt_r[npt] = fr1
-            pt_c[npt] = x
-            h_bot[c] = npt
-            cross = up_bot[c] != up_bot[c + 1]
-            on_centre |= cross and x == math.floor(x)
-            npt += cross
-        for c in range(w):
+            pt_r[npt + i] = fr1
+            pt_c[npt + i] = x
+            on_centre |= x == math.floor(x)
+        npt += nh
+        vbase = npt
+        for i in range(nv):
+            c = pos[i]
             a = np.float64(field[r0, c])
             b = np.float64(field[r1, c])
-            y = r0 + (0.0 - a) / (b - a)
-            pt_r[npt] = y
-            pt_c[npt] = c * 1.0
-            v_row[c] = npt
-            cross = up_top[c] != up_bot[c]
-            on_centre |= cross and y == math.floor(y)
-            npt += cross
+            y = fr0 + (0.0 - a) / (b - a)
+            pt_r[npt + i] = y
+            pt_c[npt + i] = c * 1.0
+            on_centre |= y == math.floor(y)
+        npt += nv
         if on_centre:
             return False, empty_f, empty_f, empty_i, empty_i
-        ncell = 0
-        for c0 in range(w - 1):
-            case = up_top[c0] | (up_top[c0 + 1] << 1) | (up_bot[c0] << 2) | (up_bot[c0 + 1] << 3)
-            cases[c0] = case
-            cells[ncell] = c0
-            ncell += (case != 0) & (case != 15)
         for j in range(ncell):
             c0 = cells[j]
             c1 = c0 + 1
-            case = cases[c0]
-            if (math.isnan(field[r0, c0]) or math.isnan(field[r0, c1]) or math.isnan(field[r1, c0])
-                    or math.isnan(field[r1, c1])):
+            case = cases[j]
+            if has_nan and (math.isnan(field[r0, c0]) or math.isnan(field[r0, c1]) or math.isnan(field[r1, c0])
+                            or math.isnan(field[r1, c1])):
                 continue
             ids[0] = h_top[c0]
             ids[1] = h_bot[c0]
-            ids[2] = v_row[c0]
-            ids[3] = v_row[c1]
+            ids[2] = v_row[c0] + vbase
+            ids[3] = v_row[c1] + vbase
             p = ids[table[case, 0]]
             q = ids[table[case, 1]]
             succ[p] = q
@@ -499,28 +564,34 @@ def _contours_chains(field, table):
     for p in range(npt):
         if state[p] == 2 or succ[p] < 0:
             continue
+        # one walk round the cycle from p, then rotate it to start at the end of its last segment
+        base = nv
+        starts[nc] = nv
         first = sidx[p]
-        last = sidx[p]
-        last_from = p
-        q = succ[p]
-        while q != p:
+        last = first
+        last_pos = 0
+        q = p
+        i = 0
+        while True:
+            state[q] = 2
+            verts[nv] = q
+            nv += 1
             s = sidx[q]
             if s < first:
                 first = s
             if s > last:
                 last = s
-                last_from = q
+                last_pos = i
             q = succ[q]
-        start = succ[last_from]
-        starts[nc] = nv
-        q = start
-        while True:
-            state[q] = 2
-            verts[nv] = q
-            nv += 1
-            q = succ[q]
-            if q == start:
+            i += 1
+            if q == p:
                 break
+        k = last_pos + 1
+        if k < i:  # rotate verts[base:base + i] left by k: three reversals
+            _reverse(verts, base, base + k)
+            _reverse(verts, base + k, base + i)
+            _reverse(verts, base, base + i)
+        start = verts[base]
         verts[nv] = start
         nv += 1
         keys[nc] = first
@@ -722,7 +793,10 @@ def _pairwise_sum(a, lo, n):
 
 @numba.njit(**_JIT)
 def _keep_run(pr, pc, ps, m, high, use_sustained, sustained, sustained_length, dpath):
-    """crossings.keep_run on the first ``m`` entries (``dpath`` is scratch space)."""
+    """crossings.keep_run on the first ``m`` entries (``dpath`` is scratch space).
+
+    Segments must be shorter than 1.5 (marching-squares segments are at most sqrt(2) long).
+    """
     if m < 2:
         return False
     smax = ps[0]
@@ -733,11 +807,25 @@ def _keep_run(pr, pc, ps, m, high, use_sustained, sustained, sustained_length, d
         return True
     if not use_sustained:
         return False
+    # the mean first, and the path only when it can reach sustained_length: a segment joins two
+    # points on the edges of one cell, so it is at most sqrt(2) < 1.5 long (the result is the same)
+    mean = np.float32(np.float64(_pairwise_sum(ps, 0, m)) / np.float64(m))
+    if not np.float64(mean) >= sustained:
+        return False
+    if 1.5 * (m - 1) < sustained_length:
+        return False
     for i in range(m - 1):
         dpath[i] = math.hypot(pr[i + 1] - pr[i], pc[i + 1] - pc[i])
     path = _pairwise_sum(dpath, 0, m - 1)
-    mean = np.float32(np.float64(_pairwise_sum(ps, 0, m)) / np.float64(m))
-    return path >= sustained_length and np.float64(mean) >= sustained
+    return path >= sustained_length
+
+
+@numba.njit(**_JIT)
+def _wrap(i, n):
+    """``i % n`` for ``0 <= i``, without a division (here ``i < 2 * n``)."""
+    while i >= n:
+        i -= n
+    return i
 
 
 @numba.njit(**_JIT)
@@ -757,9 +845,9 @@ def _select(pt_r, pt_c, verts, bounds, strength, mask, low32, low64, low_in_f64,
     nmax = 1
     for k in range(bounds.size - 1):
         nmax = max(nmax, bounds[k + 1] - bounds[k])
-    rows = np.empty(nmax, np.float64)
-    cols = np.empty(nmax, np.float64)
-    s = np.zeros(nmax, np.float32)
+    rows = np.empty(nmax + 1, np.float64)
+    cols = np.empty(nmax + 1, np.float64)
+    s = np.zeros(nmax + 1, np.float32)
     keep = np.empty(nmax, np.bool_)
     owned = np.empty(nmax, np.bool_)
     pr = np.empty(nmax + 1, np.float64)
@@ -796,7 +884,31 @@ def _select(pt_r, pt_c, verts, bounds, strength, mask, low32, low64, low_in_f64,
         ri = min(max(int(np.rint(lr)), 0), h - 1)
         ci = min(max(int(np.rint(lc)), 0), w - 1)
         if mask[ri, ci]:
-            if finite:
+            if finite and lr == ri and 2 <= ci < w - 2:
+                # on a row, away from the side columns: the 4 taps of _sample_on_edge, unclamped
+                c0 = math.floor(lc)
+                wc = _keys_weights(lc - c0)
+                ic0 = int(c0)
+                v = 0.0
+                v += wc[0] * np.float64(strength[ri, ic0 - 1])
+                v += wc[1] * np.float64(strength[ri, ic0])
+                v += wc[2] * np.float64(strength[ri, ic0 + 1])
+                v += wc[3] * np.float64(strength[ri, ic0 + 2])
+                if v == 0.0:
+                    v = _sample_cubic(strength, lr, lc)
+            elif finite and lc == ci and 2 <= ri < h - 2:
+                # on a column, away from the first and last rows: likewise
+                r0 = math.floor(lr)
+                wr = _keys_weights(lr - r0)
+                ir0 = int(r0)
+                v = 0.0
+                v += wr[0] * np.float64(strength[ir0 - 1, ci])
+                v += wr[1] * np.float64(strength[ir0, ci])
+                v += wr[2] * np.float64(strength[ir0 + 1, ci])
+                v += wr[3] * np.float64(strength[ir0 + 2, ci])
+                if v == 0.0:
+                    v = _sample_cubic(strength, lr, lc)
+            elif finite:
                 v = _sample_on_edge(strength, lr, lc)
             else:
                 v = _sample_cubic(strength, lr, lc)
@@ -819,24 +931,14 @@ def _select(pt_r, pt_c, verts, bounds, strength, mask, low32, low64, low_in_f64,
         closed = n > 3 and pt_r[first] == pt_r[last] and pt_c[first] == pt_c[last]
         if closed:
             n -= 1
+        # keep flags first; coordinates and strengths are gathered only for the vertices of runs
         any_keep = False
         for i in range(n):
-            if keep_pt[verts[a0 + i]]:
-                any_keep = True
-                break
+            kp = keep_pt[verts[a0 + i]]
+            keep[i] = kp
+            any_keep |= kp
         if not any_keep:
             continue
-        for i in range(n):
-            p = verts[a0 + i]
-            keep[i] = keep_pt[p]
-            s[i] = s_pt[p]
-            rows[i] = pt_r[p] + off_r
-            cols[i] = pt_c[p] + off_c
-        for i in range(n):
-            j = i + 1 if i + 1 < n else 0
-            mr = 0.5 * (rows[i] + rows[j])
-            mc = 0.5 * (cols[i] + cols[j])
-            owned[i] = (mr >= lo_r) and (mr < hi_r) and (mc >= lo_c) and (mc < hi_c)
         # hysteresis runs of keep (every keep vertex is a seed), wrapping on closed contours
         nruns = 0
         all_keep = True
@@ -855,9 +957,9 @@ def _select(pt_r, pt_c, verts, bounds, strength, mask, low32, low64, low_in_f64,
                 shift = 0
             i = 0
             while i < n:
-                if keep[(i + shift) % n]:
+                if keep[_wrap(i + shift, n)]:
                     j = i
-                    while j < n and keep[(j + shift) % n]:
+                    while j < n and keep[_wrap(j + shift, n)]:
                         j += 1
                     run_a[nruns] = i + shift
                     run_b[nruns] = j + shift
@@ -872,39 +974,44 @@ def _select(pt_r, pt_c, verts, bounds, strength, mask, low32, low64, low_in_f64,
             m = b - a + (1 if whole_ring else 0)
             if m < 2:
                 continue
+            # the run's vertices in contour order (vertex t is contour vertex (a + t) % n)
+            for t in range(m):
+                pv = verts[a0 + _wrap(a + t, n)]
+                rows[t] = pt_r[pv] + off_r
+                cols[t] = pt_c[pv] + off_c
+                s[t] = s_pt[pv]
+            # ownership of segment t (vertex t to t + 1) by its midpoint
             n_own = 0
             for t in range(m - 1):
-                if owned[(a + t) % n]:
-                    n_own += 1
+                mr = 0.5 * (rows[t] + rows[t + 1])
+                mc = 0.5 * (cols[t] + cols[t + 1])
+                ow = (mr >= lo_r) and (mr < hi_r) and (mc >= lo_c) and (mc < hi_c)
+                owned[t] = ow
+                n_own += ow
             if n_own == m - 1:
                 if whole_ring:
                     # canonical_ring: start at the smallest (row, col), first one on ties
                     best = 0
                     for t in range(1, n):
-                        it = (a + t) % n
-                        ib = (a + best) % n
-                        if rows[it] < rows[ib] or (rows[it] == rows[ib] and cols[it] < cols[ib]):
+                        if rows[t] < rows[best] or (rows[t] == rows[best] and cols[t] < cols[best]):
                             best = t
                     for t in range(m):
-                        it = (a + best + t) % n
+                        it = _wrap(best + t, n)
                         pr[t] = rows[it]
                         pc[t] = cols[it]
                         ps[t] = s[it]
+                    kr, kc, ks = pr, pc, ps
                 else:
-                    for t in range(m):
-                        it = (a + t) % n
-                        pr[t] = rows[it]
-                        pc[t] = cols[it]
-                        ps[t] = s[it]
-                if _keep_run(pr, pc, ps, m, high, use_sustained, sustained, sustained_length, dpath):
+                    kr, kc, ks = rows, cols, s
+                if _keep_run(kr, kc, ks, m, high, use_sustained, sustained, sustained_length, dpath):
                     p_r = _grow(p_r, np_v + m)
                     p_c = _grow(p_c, np_v + m)
                     p_s = _grow(p_s, np_v + m)
                     p_b = _grow(p_b, np_k + 2)
                     for t in range(m):
-                        p_r[np_v + t] = pr[t]
-                        p_c[np_v + t] = pc[t]
-                        p_s[np_v + t] = ps[t]
+                        p_r[np_v + t] = kr[t]
+                        p_c[np_v + t] = kc[t]
+                        p_s[np_v + t] = ks[t]
                     np_v += m
                     np_k += 1
                     p_b[np_k] = np_v
@@ -915,11 +1022,11 @@ def _select(pt_r, pt_c, verts, bounds, strength, mask, low32, low64, low_in_f64,
             nseg = m - 1
             t = 0
             while t < nseg:
-                if not owned[(a + t) % n]:
+                if not owned[t]:
                     t += 1
                     continue
                 e = t
-                while e < nseg and owned[(a + e) % n]:
+                while e < nseg and owned[e]:
                     e += 1
                 cnt = e - t + 1
                 f_r = _grow(f_r, nf_v + cnt)
@@ -930,10 +1037,9 @@ def _select(pt_r, pt_c, verts, bounds, strength, mask, low32, low64, low_in_f64,
                     f_so = _grow_bool(f_so, f_b.size)
                     f_eo = _grow_bool(f_eo, f_b.size)
                 for u in range(cnt):
-                    it = (a + t + u) % n
-                    f_r[nf_v + u] = rows[it]
-                    f_c[nf_v + u] = cols[it]
-                    f_s[nf_v + u] = s[it]
+                    f_r[nf_v + u] = rows[t + u]
+                    f_c[nf_v + u] = cols[t + u]
+                    f_s[nf_v + u] = s[t + u]
                 f_so[nf_k] = t > 0 or whole_ring
                 f_eo[nf_k] = e < nseg or whole_ring
                 nf_v += cnt

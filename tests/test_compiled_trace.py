@@ -306,3 +306,24 @@ def test_keep_run_thresholds_are_bit_exact(n):
         ref = keep_run(rows, cols, s, high=high, sustained=sus, sustained_length_px=length)
         assert ct._keep_run(rows, cols, s, n, high, True, sus, length, scratch) == ref
     assert keep_run(rows, cols, s, high=high, sustained=mean, sustained_length_px=path)
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_every_vertex_strength_is_bit_exact(dtype, seed):
+    # Reference: trace_level_set_reference (strengths from crossings.sample_cubic, clipped at 0,
+    # float32).  With low = high = -1 every vertex is kept, so every contour comes back with the
+    # strength of every vertex, including vertices next to the window's sides, where the compiled
+    # code clamps taps and elsewhere reads them directly; they must agree to the last bit.
+    rng = np.random.default_rng(seed)
+    f = rng.standard_normal((9, 13)).astype(np.float32)
+    s = (rng.random(f.shape) * 4 - 0.5).astype(dtype)
+    usable = np.ones(f.shape, bool)
+    ref = trace_level_set_reference(f, s, usable, high=-1.0, low=-1.0)
+    out = ct.trace_compiled(f, s, usable, high=-1.0, low=-1.0)
+    assert sum(p[0].size for p in ref[0]) > 40  # many vertices, some on every side
+    assert len(out[0]) == len(ref[0])
+    get = lambda p: p  # noqa: E731
+    for (rr, rc, rs), (orr, oc, os_) in zip(_by_first_vertex(ref[0], get), _by_first_vertex(out[0], get)):
+        assert np.array_equal(orr, rr) and np.array_equal(oc, rc)
+        assert os_.dtype == rs.dtype == np.float32 and np.array_equal(os_, rs)
