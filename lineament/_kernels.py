@@ -43,8 +43,19 @@ def _source_index(i: int, n: int, mode: int) -> int:
     return i if i < n else period - 1 - i
 
 
+@numba.njit(cache=True, inline="always")
+def _fill_line(image, i, r, mode, line):
+    """Row ``i`` of ``image`` into ``line`` with ``r`` extended cells on each side (border ``mode``)."""
+    w = image.shape[1]
+    for j in range(w):
+        line[j + r] = image[i, j]
+    for j in range(r):
+        line[j] = image[i, _source_index(j - r, w, mode)]
+        line[w + r + j] = image[i, _source_index(w + j, w, mode)]
+
+
 @numba.njit(cache=True, nogil=True)
-def _along_rows(image, kernel, out, mode, row0, row1, symmetry):  # pragma: no cover - compiled; symmetry unused
+def _along_rows(image, kernel, out, mode, row0, row1):  # pragma: no cover - compiled
     h, w = image.shape
     taps = kernel.size
     r = taps // 2
@@ -52,11 +63,7 @@ def _along_rows(image, kernel, out, mode, row0, row1, symmetry):  # pragma: no c
         # fresh buffers per row: the compiler then knows they do not overlap, and vectorises
         line = np.empty(w + taps - 1, np.float64)
         acc = np.empty(w, np.float64)
-        for j in range(w):
-            line[j + r] = image[i, j]
-        for j in range(r):
-            line[j] = image[i, _source_index(j - r, w, mode)]
-            line[w + r + j] = image[i, _source_index(w + j, w, mode)]
+        _fill_line(image, i, r, mode, line)
         # plain taps: folding symmetric taps here measured twice as slow (not vectorised)
         for j in range(w):
             acc[j] = 0.0
@@ -69,7 +76,7 @@ def _along_rows(image, kernel, out, mode, row0, row1, symmetry):  # pragma: no c
 
 
 @numba.njit(cache=True, nogil=True)
-def _along_columns(image, kernel, out, mode, row0, row1, symmetry):  # pragma: no cover - compiled
+def _along_columns(image, kernel, out, mode, symmetry, row0, row1):  # pragma: no cover - compiled
     h, w = image.shape
     taps = kernel.size
     r = taps // 2
@@ -113,7 +120,7 @@ def kernel_symmetry(kernel: np.ndarray) -> int:
 #: Images smaller than this run on the calling thread.
 _MIN_PARALLEL_CELLS = 1 << 18
 _pool_lock = threading.Lock()
-_pool: tuple[int, ThreadPoolExecutor] | None = None
+_pools: dict[str, tuple[int, ThreadPoolExecutor]] = {}
 
 
 def kernel_threads() -> int:
@@ -127,25 +134,28 @@ def kernel_threads() -> int:
         return max(1, os.cpu_count() or 1)
 
 
-def _executor() -> ThreadPoolExecutor:
-    """The process's thread pool (made again in a forked child, whose copy has no threads)."""
-    global _pool
+def thread_pool(name: str, workers: int) -> ThreadPoolExecutor:
+    """This process's pool of threads called ``name`` (made again in a forked child, whose copy has no threads)."""
     with _pool_lock:
-        if _pool is None or _pool[0] != os.getpid():
-            _pool = (os.getpid(), ThreadPoolExecutor(max_workers=kernel_threads(),
-                                                     thread_name_prefix="lineament-kernel"))
-        return _pool[1]
+        pid, pool = _pools.get(name, (None, None))
+        if pool is None or pid != os.getpid():
+            pool = ThreadPoolExecutor(max_workers=workers, thread_name_prefix=name)
+            _pools[name] = (os.getpid(), pool)
+        return pool
 
 
-def _run_bands(fn, img, k, out, mode) -> None:
-    h = img.shape[0]
+def _executor() -> ThreadPoolExecutor:
+    return thread_pool("lineament-kernel", kernel_threads())
+
+
+def _bands(fn, h: int, size: int, *args) -> None:
+    """Run ``fn(*args, row0, row1)`` over bands of the ``h`` rows, one per thread (inline when small)."""
     threads = kernel_threads()
-    sym = kernel_symmetry(k)
-    if threads == 1 or img.size < _MIN_PARALLEL_CELLS or h < 2 * threads:
-        fn(img, k, out, mode, 0, h, sym)
+    if threads == 1 or size < _MIN_PARALLEL_CELLS or h < 2 * threads:
+        fn(*args, 0, h)
         return
     edges = np.linspace(0, h, threads + 1).astype(int)
-    futures = [_executor().submit(fn, img, k, out, mode, int(a), int(b), sym) for a, b in zip(edges[:-1], edges[1:])]
+    futures = [_executor().submit(fn, *args, int(a), int(b)) for a, b in zip(edges[:-1], edges[1:])]
     for fut in futures:
         fut.result()
 
@@ -179,9 +189,9 @@ def correlate1d(image: np.ndarray, kernel: np.ndarray, axis: int, *, mode: str =
     if img.size == 0:
         return out
     if axis == 1:
-        _run_bands(_along_rows, img, k, out, _MODES[mode])
+        _bands(_along_rows, img.shape[0], img.size, img, k, out, _MODES[mode])
     elif axis == 0:
-        _run_bands(_along_columns, img, k, out, _MODES[mode])
+        _bands(_along_columns, img.shape[0], img.size, img, k, out, _MODES[mode], kernel_symmetry(k))
     else:
         raise ValueError(f"axis must be 0 or 1, got {axis}")
     return out
@@ -196,11 +206,7 @@ def _gradient_passes(response, stencil, scale_x, scale_y, factor, gx, gy, mag, r
         line = np.empty(w + taps - 1, np.float64)
         acc_x = np.zeros(w, np.float64)
         acc_y = np.zeros(w, np.float64)
-        for j in range(w):
-            line[j + r] = response[i, j]
-        for j in range(r):
-            line[j] = response[i, 0]
-            line[w + r + j] = response[i, w - 1]
+        _fill_line(response, i, r, 1, line)  # border cells repeated (nearest)
         for t in range(taps):
             st = stencil[t]
             src = min(max(i + t - r, 0), h - 1)
@@ -247,17 +253,8 @@ def gradient_and_magnitude(response: np.ndarray, stencil: np.ndarray, scale_x: f
     mag = np.empty(img.shape, np.float32)
     if img.size == 0:
         return mag, gx, gy
-    h = img.shape[0]
-    threads = kernel_threads()
     sx, sy, fac = np.float32(scale_x), np.float32(scale_y), np.float32(factor)
-    if threads == 1 or img.size < _MIN_PARALLEL_CELLS or h < 2 * threads:
-        _gradient_passes(img, st, sx, sy, fac, gx, gy, mag, 0, h)
-    else:
-        edges = np.linspace(0, h, threads + 1).astype(int)
-        futures = [_executor().submit(_gradient_passes, img, st, sx, sy, fac, gx, gy, mag, int(a), int(b))
-                   for a, b in zip(edges[:-1], edges[1:])]
-        for fut in futures:
-            fut.result()
+    _bands(_gradient_passes, img.shape[0], img.size, img, st, sx, sy, fac, gx, gy, mag)
     return mag, gx, gy
 
 
@@ -271,11 +268,7 @@ def _rows_pair(image, k_a, k_b, out_a, out_b, row0, row1):  # pragma: no cover -
         line = np.empty(w + taps - 1, np.float64)
         acc_a = np.zeros(w, np.float64)
         acc_b = np.zeros(w, np.float64)
-        for j in range(w):
-            line[j + r] = image[i, j]
-        for j in range(r):
-            line[j] = image[i, _source_index(j - r, w, 0)]
-            line[w + r + j] = image[i, _source_index(w + j, w, 0)]
+        _fill_line(image, i, r, 0, line)
         for t in range(taps):
             ka = k_a[t]
             kb = k_b[t]
@@ -317,17 +310,6 @@ def _columns_laplacian(a, b, k_for_a, k_for_b, scale_b, scale_a, out, row0, row1
         for j in range(w):
             out[i, j] = (np.float32(np.float32(acc_b[j]) * scale_b)
                          + np.float32(np.float32(acc_a[j]) * scale_a))
-
-
-def _bands(fn, h: int, size: int, *args) -> None:
-    threads = kernel_threads()
-    if threads == 1 or size < _MIN_PARALLEL_CELLS or h < 2 * threads:
-        fn(*args, 0, h)
-        return
-    edges = np.linspace(0, h, threads + 1).astype(int)
-    futures = [_executor().submit(fn, *args, int(a), int(b)) for a, b in zip(edges[:-1], edges[1:])]
-    for fut in futures:
-        fut.result()
 
 
 def laplacian_passes(image: np.ndarray, row_smooth: np.ndarray, row_second: np.ndarray,

@@ -414,18 +414,11 @@ def _trace_one(plan: RunPlan, item) -> tuple[list, list]:
 #: level set costs a few arrays of the window, so this bounds the extra memory.  Two measured no
 #: faster than one on 2 cores (the filter passes already use both).
 TRACE_THREADS = 1
-_tracer_pool: tuple[int, object] | None = None
-
-
 def _tracer_threads():
-    """Background threads for tracing, one pool per process (made again in a forked child)."""
-    global _tracer_pool
-    from concurrent.futures import ThreadPoolExecutor
+    """Background threads for tracing (one pool per process)."""
+    from ._kernels import thread_pool
 
-    if _tracer_pool is None or _tracer_pool[0] != os.getpid():
-        _tracer_pool = (os.getpid(), ThreadPoolExecutor(max_workers=TRACE_THREADS,
-                                                        thread_name_prefix="lineament-trace"))
-    return _tracer_pool[1]
+    return thread_pool("lineament-trace", TRACE_THREADS)
 
 
 def _trace_from(plan: RunPlan, level_sets, before=None) -> TileOutput:
