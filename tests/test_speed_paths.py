@@ -42,7 +42,7 @@ def _level_set(z, sigma):
 
 
 @pytest.mark.parametrize("seed", range(6))
-def test_selective_tracer_matches_full_trace_on_random_fields(seed):
+def test_production_tracer_matches_full_trace_on_random_fields(seed):
     rng = np.random.default_rng(seed)
     n = 220
     z = ndimage.gaussian_filter(rng.normal(size=(n, n)), 1.0 + 0.3 * seed).astype(np.float32)
@@ -59,7 +59,7 @@ def test_selective_tracer_matches_full_trace_on_random_fields(seed):
     assert fast == ref
 
 
-def test_selective_tracer_matches_full_trace_with_allowed_mask():
+def test_production_tracer_matches_full_trace_with_allowed_mask():
     rng = np.random.default_rng(11)
     z = ndimage.gaussian_filter(rng.normal(size=(180, 200)), 1.5).astype(np.float32)
     r, s, noise = _level_set(z, 2.0)
@@ -71,7 +71,7 @@ def test_selective_tracer_matches_full_trace_with_allowed_mask():
     assert _canonical(trace_level_set(r, s, usable, **kw)) == ref
 
 
-def test_selective_tracer_matches_full_trace_on_sample_dem():
+def test_production_tracer_matches_full_trace_on_sample_dem():
     with rasterio.open(SAMPLES / "dem_faulted.tif") as src:
         z = src.read(1).astype(np.float32)
     z = np.where(z > -9000, z - np.median(z[z > -9000]), 0).astype(np.float32)[:512, :512]
@@ -87,7 +87,7 @@ def test_selective_tracer_matches_full_trace_on_sample_dem():
         assert _canonical(trace_level_set(r, s, usable, **kw)) == ref
 
 
-def test_selective_tracer_is_independent_of_the_window():
+def test_production_tracer_is_independent_of_the_window():
     # Pieces owned by a core are the same whatever window (with enough halo) surrounds it:
     # the selection only ever adds cells, and tracing is local (marching squares).
     rng = np.random.default_rng(4)
