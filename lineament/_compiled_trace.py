@@ -230,18 +230,7 @@ def _add_segment(fp, tp, starts, ends, node_pid, node_next, c_first, c_last, c_l
 
 @numba.njit(**_JIT)
 def _grow(a, need):
-    """``a`` with room for ``need`` entries (doubled, contents kept)."""
-    if need <= a.size:
-        return a
-    b = np.empty(max(need, 2 * a.size), a.dtype)
-    for i in range(a.size):
-        b[i] = a[i]
-    return b
-
-
-@numba.njit(**_JIT)
-def _grow_bool(a, need):
-    """As :func:`_grow`, new entries False."""
+    """``a`` with room for ``need`` entries (doubled, contents kept, new entries zero / False)."""
     if need <= a.size:
         return a
     b = np.zeros(max(need, 2 * a.size), a.dtype)
@@ -311,7 +300,7 @@ def _contours(field):
                 c_first = _grow(c_first, ccap)
                 c_last = _grow(c_last, ccap)
                 c_len = _grow(c_len, ccap)
-                c_alive = _grow_bool(c_alive, ccap)
+                c_alive = _grow(c_alive, ccap)
             top = -1
             bottom = -1
             left = -1
@@ -1034,8 +1023,8 @@ def _select(pt_r, pt_c, verts, bounds, strength, mask, low32, low64, low_in_f64,
                 f_s = _grow(f_s, nf_v + cnt)
                 if nf_k + 2 > f_b.size:
                     f_b = _grow(f_b, nf_k + 2)
-                    f_so = _grow_bool(f_so, f_b.size)
-                    f_eo = _grow_bool(f_eo, f_b.size)
+                    f_so = _grow(f_so, f_b.size)
+                    f_eo = _grow(f_eo, f_b.size)
                 for u in range(cnt):
                     f_r[nf_v + u] = rows[t + u]
                     f_c[nf_v + u] = cols[t + u]
