@@ -238,19 +238,23 @@ def open_raster(path: str | os.PathLike, settings: ExtractionSettings | None = N
 
 
 def _to_values(data: np.ma.MaskedArray, bands: tuple) -> tuple[np.ndarray, np.ndarray]:
-    mask = np.ma.getmaskarray(data).any(axis=0)
     raw = np.ma.getdata(data)
     # small integers and float32 fit float32 exactly; wider types stay float64 until centred
     wide = raw.dtype.itemsize > 2 and raw.dtype != np.float32
     arr = raw.astype(np.float64 if wide else np.float32, copy=False)
     with np.errstate(invalid="ignore"):
-        valid = ~mask & np.isfinite(arr).all(axis=0)
+        valid = np.isfinite(arr).all(axis=0) if arr.shape[0] > 1 else np.isfinite(arr[0])
+    mask = np.ma.getmask(data)
+    if mask is not np.ma.nomask:
+        valid &= ~mask.any(axis=0)
     if len(bands) == 3:
         w = LUMA_709
         with np.errstate(invalid="ignore", over="ignore"):
             values = w[0] * arr[0] + w[1] * arr[1] + w[2] * arr[2]
     else:
         values = arr[0]
+    if valid.all():  # the usual case: no copy
+        return np.ascontiguousarray(values, dtype=arr.dtype), valid
     return np.where(valid, values, 0).astype(arr.dtype), valid
 
 

@@ -121,23 +121,24 @@ def pieces_to_lines(pieces: Iterable[CrossingPiece], georef: GeoRef, *, toleranc
     pieces = list(pieces)
     if not pieces:
         return []
-    xs, ys, strengths = [], [], []
+    rows, cols, strengths = [], [], []
     for p in pieces:
-        rows, cols, strength = (p.rows, p.cols, p.strength) if isinstance(p, CrossingPiece) else p
-        x, y = georef.pixel_to_map(rows, cols)
-        xs.append(x)
-        ys.append(y)
+        r, c, strength = (p.rows, p.cols, p.strength) if isinstance(p, CrossingPiece) else p
+        rows.append(np.asarray(r, dtype=np.float64))
+        cols.append(np.asarray(c, dtype=np.float64))
         strengths.append(strength)
+    # one conversion and one geometry array for all pieces (element-wise: the same numbers as per piece)
+    x, y = georef.pixel_to_map(np.concatenate(rows), np.concatenate(cols))
     # tolerance in CRS units: metres / (metres per unit); for degrees use the pixel ratio
     px_units = min(georef.pixel_size)
     px_m = min(georef.pixel_size_m())
     tol_units = tolerance_m * px_units / px_m if px_m > 0 else 0.0
-    counts = [len(x) for x in xs]
-    geoms = shapely.linestrings(np.concatenate(xs), np.concatenate(ys),
-                                indices=np.repeat(np.arange(len(xs)), counts))
+    counts = [r.size for r in rows]
+    geoms = shapely.linestrings(x, y, indices=np.repeat(np.arange(len(rows)), counts))
     if tol_units > 0:
         geoms = shapely.simplify(geoms, tol_units, preserve_topology=False)
-    coords = [shapely.get_coordinates(g) for g in geoms]
+    flat, owner = shapely.get_coordinates(geoms, return_index=True)
+    coords = np.split(flat, np.cumsum(np.bincount(owner, minlength=len(geoms)))[:-1])
     keep = [i for i, c in enumerate(coords) if len(c) >= 2]
     measures = line_measures([coords[i][:, 0] for i in keep], [coords[i][:, 1] for i in keep], georef)
     out = []
