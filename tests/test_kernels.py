@@ -10,6 +10,21 @@ from lineament import _kernels
 from lineament._kernels import correlate1d
 from lineament.scalespace import gaussian_kernel1d
 
+#: Unit roundoff of float32 (IEEE 754 binary32: 2**-24).
+UNIT_ROUNDOFF = 2.0 ** -24
+
+
+def _gamma(n: int) -> float:
+    """Higham's gamma_n = n u / (1 - n u): a float32 sum of n products is within
+    gamma_n * sum |products| of the exact sum (Higham 2002, Accuracy and Stability of
+    Numerical Algorithms, 2nd ed., eq. 3.5 and lemma 3.1)."""
+    return n * UNIT_ROUNDOFF / (1.0 - n * UNIT_ROUNDOFF)
+
+
+def _abs_pass(img: np.ndarray, kernel: np.ndarray, axis: int, mode: str) -> np.ndarray:
+    """sum |k_t| |v_t| at every cell (scipy.ndimage.correlate1d in float64)."""
+    return ndimage.correlate1d(np.abs(img.astype(np.float64)), np.abs(kernel), axis=axis, mode=mode)
+
 
 @pytest.mark.parametrize("axis", [0, 1])
 @pytest.mark.parametrize("mode", ["reflect", "nearest"])
@@ -24,9 +39,12 @@ def test_matches_scipy_correlate1d(axis, mode, shape):
         ref = ndimage.correlate1d(img.astype(np.float64), kernel, axis=axis, mode=mode)
         out = correlate1d(img, kernel, axis, mode=mode)
         assert out.dtype == np.float32 and out.shape == img.shape
-        # one float32 rounding of a float64 sum (IEEE 754: half an ulp, 6e-8 relative)
-        scale = np.abs(img).max() * np.abs(kernel).sum()
-        np.testing.assert_allclose(out, ref, rtol=1e-6, atol=1e-6 * scale)
+        # float32 sums of float32 products: within gamma_n * sum |k v| per cell (Higham 2002),
+        # n = taps + 2 (the kernel taps rounded to float32, a folded pair's sum, the final rounding)
+        bound = _gamma(kernel.size + 2) * _abs_pass(img, kernel, axis, mode)
+        assert np.all(np.abs(out - ref) <= bound + 1e-30)
+        # and the bound is not vacuous: relative to the whole sum it is about 1e-6
+        assert bound.max() <= 2e-6 * np.abs(img).max() * np.abs(kernel).sum()
 
 
 def test_window_gives_the_same_bits_as_the_whole_image():
@@ -74,10 +92,12 @@ def test_gradient_and_magnitude_matches_scipy_differences(shape):
     mag, gx, gy = gradient_and_magnitude(img, stencil, 0.1, 0.05, 3.0)
     rx = ndimage.correlate1d(img.astype(np.float64), stencil, axis=1, mode="nearest") * 0.1
     ry = ndimage.correlate1d(img.astype(np.float64), stencil, axis=0, mode="nearest") * 0.05
-    tol = 1e-6 * np.abs(img).max()
-    np.testing.assert_allclose(gx, rx, rtol=1e-6, atol=tol)
-    np.testing.assert_allclose(gy, ry, rtol=1e-6, atol=tol)
-    np.testing.assert_allclose(mag, 3.0 * np.hypot(rx, ry), rtol=1e-5, atol=3 * tol)
+    # float32 sums of 5 products (Higham 2002 bound, as above) and one float32 product with the scale
+    bx = (_gamma(5 + 2) * _abs_pass(img, stencil, 1, "nearest") + UNIT_ROUNDOFF * np.abs(rx / 0.1)) * 0.1
+    by = (_gamma(5 + 2) * _abs_pass(img, stencil, 0, "nearest") + UNIT_ROUNDOFF * np.abs(ry / 0.05)) * 0.05
+    assert np.all(np.abs(gx - rx) <= bx + 1e-30)
+    assert np.all(np.abs(gy - ry) <= by + 1e-30)
+    np.testing.assert_allclose(mag, 3.0 * np.hypot(rx, ry), rtol=1e-5, atol=3 * (bx.max() + by.max()))
 
 
 @pytest.mark.parametrize("shape", [(1, 1), (4, 9), (257, 300)])
@@ -95,6 +115,31 @@ def test_laplacian_passes_match_four_scipy_passes(shape):
     lxx = ndimage.correlate1d(ndimage.correlate1d(f64, kx2, axis=1, mode="reflect"), ky0, axis=0, mode="reflect")
     lyy = ndimage.correlate1d(ndimage.correlate1d(f64, kx0, axis=1, mode="reflect"), ky2, axis=0, mode="reflect")
     ref = 4.0 * lxx + 1.5 * lyy
-    np.testing.assert_allclose(out, ref, rtol=1e-5, atol=1e-5 * np.abs(img).max())
+    # two float32 passes compose (Higham 2002, as above): each of Lxx and Lyy is within
+    # gamma_(n1 + n2 + 4) of its sum of |products|; two products and one sum in float32 follow
+    n = kx0.size + ky0.size + 4
+    axx = ndimage.correlate1d(_abs_pass(img, kx2, 1, "reflect"), np.abs(ky0), axis=0, mode="reflect")
+    ayy = ndimage.correlate1d(_abs_pass(img, kx0, 1, "reflect"), np.abs(ky2), axis=0, mode="reflect")
+    bound = _gamma(n + 3) * (4.0 * axx + 1.5 * ayy)
+    assert np.all(np.abs(out - ref) <= bound + 1e-30)
     with pytest.raises(ValueError):
         laplacian_passes(img, kx0, gaussian_kernel1d(3.0, 2), ky0, ky2, 1.0, 1.0)
+
+
+@pytest.mark.parametrize("shape", [(1, 1), (2, 3), (7, 6), (65, 80), (301, 257)])
+@pytest.mark.parametrize("axis", [0, 1])
+def test_every_second_cell_is_the_full_pass_sliced(shape, axis):
+    # step=2 computes only the kept cells: the same bits as the full pass sliced with ::2
+    # (and within the float32 bound of scipy.ndimage.correlate1d sliced the same way)
+    rng = np.random.default_rng(shape[0] * 7 + axis)
+    img = (rng.normal(size=shape) * 30).astype(np.float32)
+    for kernel in (gaussian_kernel1d(2.0, 0), gaussian_kernel1d(1.7, 0), np.array([0.25, 0.5, 0.25])):
+        full = correlate1d(img, kernel, axis)
+        half = correlate1d(img, kernel, axis, step=2)
+        cut = (slice(None), slice(None, None, 2)) if axis == 1 else (slice(None, None, 2), slice(None))
+        assert half.shape == full[cut].shape
+        assert np.array_equal(half, full[cut])
+        ref = ndimage.correlate1d(img.astype(np.float64), kernel, axis=axis, mode="reflect")[cut]
+        assert np.all(np.abs(half - ref) <= _gamma(kernel.size + 2) * _abs_pass(img, kernel, axis, "reflect")[cut] + 1e-30)
+    with pytest.raises(ValueError):
+        correlate1d(img, gaussian_kernel1d(2.0, 0), axis, step=3)
