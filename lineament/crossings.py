@@ -120,6 +120,66 @@ def robust_noise(gx: np.ndarray, gy: np.ndarray, usable: np.ndarray, *, max_samp
     return float(MAD_TO_SIGMA * np.median(np.abs(comps - med)))
 
 
+#: The pipeline's rounding allowance: ``rounding_std = ROUNDING_STD_PER_SPAN * span``, where
+#: ``span`` is the largest magnitude of the centred float32 values (4 float32 epsilons).
+ROUNDING_STD_PER_SPAN = 4.0 * float(np.finfo(np.float32).eps)
+
+
+def unit_impulse(sigma_m: float, pixel_size_m: tuple[float, float], truncate: float) -> np.ndarray:
+    """A unit impulse in a window wide enough for the filters of one scale (plus the 5-point stencil)."""
+    rr = int(math.ceil(truncate * sigma_m / pixel_size_m[1])) + 3
+    rc = int(math.ceil(truncate * sigma_m / pixel_size_m[0])) + 3
+    impulse = np.zeros((2 * rr + 1, 2 * rc + 1), np.float32)
+    impulse[rr, rc] = 1.0
+    return impulse
+
+
+def float32_sum_bound(impulse_response: np.ndarray) -> float:
+    """Bound on the rounding of a linear filter computed with float32 sums, per unit of input magnitude.
+
+    A float32 sum of ``n`` products is within ``gamma_n * sum |k v|`` of the
+    exact sum, ``gamma_n = n u / (1 - n u)``, ``u = 2**-24`` (Higham 2002,
+    eq. 3.5); for a chain of separable passes ``n`` is about the taps of all
+    passes, here the support's rows plus columns plus 4 (the products and
+    roundings that follow), and ``sum |k v| <= sum |h| * max |v|`` with ``h``
+    the chain's impulse response.
+
+    References
+    ----------
+    Higham, N. J. (2002). Accuracy and Stability of Numerical Algorithms, 2nd
+    ed. SIAM, chapter 3. doi:10.1137/1.9780898718027
+    """
+    h = np.asarray(impulse_response, dtype=np.float64)
+    nz = np.nonzero(h)
+    if nz[0].size == 0:
+        return 0.0
+    n = (int(nz[0].max() - nz[0].min()) + 1) + (int(nz[1].max() - nz[1].min()) + 1) + 4
+    u = 2.0 ** -24
+    return n * u / (1.0 - n * u) * float(np.abs(h).sum())
+
+
+def rounding_floor(impulse_responses, rounding_std: float) -> float:
+    """Noise level that float32 arithmetic alone can produce in components with these impulse responses.
+
+    The larger of the input rounding as white noise of ``rounding_std``
+    through the filters (the output variance of a linear filter for white
+    input is the sum of its squared taps), and the bound on the rounding of
+    float32 sums (:func:`float32_sum_bound`) for values up to ``span =
+    rounding_std / ROUNDING_STD_PER_SPAN``.  On noise-free surfaces (planes,
+    clean synthetic steps) the measured noise level is arithmetic, and lines
+    made of it must not pass thresholds that are multiples of it.
+
+    Returns
+    -------
+    float
+        In the components' units (before any noise factor).
+    """
+    comps = [np.asarray(c, np.float64) for c in impulse_responses]
+    white = math.sqrt(np.mean([np.sum(c * c) for c in comps]))
+    sums = max(float32_sum_bound(c) for c in comps)
+    return max(rounding_std * white, sums * rounding_std / ROUNDING_STD_PER_SPAN)
+
+
 def noise_gain(response_of, sigma_m: float, pixel_size_m: tuple[float, float], *, truncate: float) -> float:
     """Standard deviation of one response-gradient component per unit of white input noise.
 
@@ -135,13 +195,16 @@ def noise_gain(response_of, sigma_m: float, pixel_size_m: tuple[float, float], *
     sigma_m, pixel_size_m, truncate
         As for the response.
     """
-    rr = int(math.ceil(truncate * sigma_m / pixel_size_m[1])) + 3
-    rc = int(math.ceil(truncate * sigma_m / pixel_size_m[0])) + 3
-    impulse = np.zeros((2 * rr + 1, 2 * rc + 1), np.float32)
-    impulse[rr, rc] = 1.0
-    _, gx, gy = strength_map(response_of(impulse), sigma_m, pixel_size_m)
+    gx, gy = gradient_impulse_responses(response_of, sigma_m, pixel_size_m, truncate=truncate)
     gx64, gy64 = gx.astype(np.float64), gy.astype(np.float64)
     return float(math.sqrt(0.5 * (np.sum(gx64 * gx64) + np.sum(gy64 * gy64))))
+
+
+def gradient_impulse_responses(response_of, sigma_m: float, pixel_size_m: tuple[float, float], *,
+                               truncate: float) -> tuple[np.ndarray, np.ndarray]:
+    """Impulse responses of the two response-gradient components (as :func:`strength_map` takes them)."""
+    _, gx, gy = strength_map(response_of(unit_impulse(sigma_m, pixel_size_m, truncate)), sigma_m, pixel_size_m)
+    return gx, gy
 
 
 def _keys_weights(t: np.ndarray) -> np.ndarray:

@@ -20,7 +20,8 @@ from typing import Callable
 import numpy as np
 
 
-from .crossings import noise_gain, step_strength_factor, strength_map
+from .crossings import (unit_impulse, gradient_impulse_responses, rounding_floor, step_strength_factor,
+                        strength_map)
 from .errors import SettingsError
 from ._kernels import correlate1d
 from .scalespace import dog_response, gaussian_derivative, gaussian_kernel1d, log_response, residual_sigma
@@ -97,10 +98,11 @@ def _edge_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float
     resp = response_of(image)
     strength, gx, gy = strength_map(resp, sigma_m, pixel_size_m)
     factor = step_strength_factor(sigma_m)
-    # Floors: input rounding through the filter, and rounding of the response itself (the DoG
-    # subtracts two nearly equal blurred images) through the 5-point derivative, whose white-noise
-    # gain is sqrt(130) / 12 per pixel.
-    floor_in = rounding_std * noise_gain(response_of, sigma_m, pixel_size_m, truncate=truncate)
+    # Floors: input rounding through the filter and the float32 sums (crossings.rounding_floor),
+    # and rounding of the response itself (the DoG subtracts two nearly equal blurred images)
+    # through the 5-point derivative, whose white-noise gain is sqrt(130) / 12 per pixel.
+    floor_in = rounding_floor(gradient_impulse_responses(response_of, sigma_m, pixel_size_m, truncate=truncate),
+                              rounding_std)
     floor_out = rounding_std * response_scale * math.sqrt(130.0) / 12.0 / min(pixel_size_m)
     return LevelSet(resp, strength, None, (gx, gy), factor, max(floor_in, floor_out) * factor)
 
@@ -152,14 +154,10 @@ def derivative_stack(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[floa
     return out
 
 
-def _impulse_gain(component_of, sigma_m: float, pixel_size_m: tuple[float, float], *, truncate: float) -> float:
-    """RMS over components of the white-noise gain of linear filters (square root of the sum of squared taps)."""
-    rr = int(math.ceil(truncate * sigma_m / pixel_size_m[1])) + 3
-    rc = int(math.ceil(truncate * sigma_m / pixel_size_m[0])) + 3
-    impulse = np.zeros((2 * rr + 1, 2 * rc + 1), np.float32)
-    impulse[rr, rc] = 1.0
-    comps = component_of(impulse)
-    return float(math.sqrt(np.mean([np.sum(np.asarray(c, np.float64) ** 2) for c in comps])))
+def _impulse_floor(component_of, sigma_m: float, pixel_size_m: tuple[float, float], *, truncate: float,
+                   rounding_std: float) -> float:
+    """:func:`~lineament.crossings.rounding_floor` of linear filter components, from their impulse responses."""
+    return rounding_floor(component_of(unit_impulse(sigma_m, pixel_size_m, truncate)), rounding_std)
 
 
 # --------------------------------------------------------------------------- valleys and ridges
@@ -291,23 +289,27 @@ def _curvature_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[
     px[flipped] *= -1
     py[flipped] *= -1
     field = (lx * px + ly * py).astype(np.float32)
-    condition = (np.float32(sign) * m > 0) & (r > 0)
-    allowed = condition & ~_orientation_flips(px, py)
-    factor = TROUGH_DEPTH_FACTOR * sigma_m * sigma_m
-    strength = (np.abs(lpp) * np.float32(factor)).astype(np.float32)
 
     def components(img):
         dd = derivative_stack(img, sigma_m, pixel_size_m, ((0, 2), (2, 0), (1, 1)), truncate=truncate,
                               prior_blur_px=prior_blur_px)
         return (np.float32(0.5) * (dd[(0, 2)] - dd[(2, 0)]), dd[(1, 1)])
 
-    gain = _impulse_gain(components, sigma_m, pixel_size_m, truncate=truncate)
+    floor = _impulse_floor(components, sigma_m, pixel_size_m, truncate=truncate, rounding_std=rounding_std)
+    # where the principal curvatures differ by no more than float32 arithmetic can produce (r at
+    # the rounding floor: a plane, a flattened lake, the plateaus of a clean step), the principal
+    # direction is undefined: no line lies there and the cell is no sample of the background
+    condition = (np.float32(sign) * m > 0) & (r > np.float32(floor))
+    allowed = condition & ~_orientation_flips(px, py)
+    factor = TROUGH_DEPTH_FACTOR * sigma_m * sigma_m
+    strength = (np.abs(lpp) * np.float32(factor)).astype(np.float32)
+
     noise_factor = factor * CURVATURE_NOISE_CALIBRATION
     # Noise is sampled wherever the sign condition holds: the cells dropped at orientation flips
     # are where the principal direction turns, which favours small |(Lxx - Lyy) / 2| and |Lxy|, and
     # their share depends on the grid spacing (one cell wide), so leaving them in keeps the noise
     # level a property of the terrain alone.
-    return LevelSet(field, strength, allowed, (a, lxy), noise_factor, rounding_std * gain * noise_factor,
+    return LevelSet(field, strength, allowed, (a, lxy), noise_factor, floor * noise_factor,
                     noise_mask=condition)
 
 
@@ -336,7 +338,8 @@ def _gradient_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[f
     sigma (analytic), so strength is the equivalent step height, as for the
     LoG edges.  Noise: the gradient components ``Lx``, ``Ly`` (zero mean for
     the background; sampled where ``L_www < 0``, a condition unchanged by
-    ``L -> -L``, so they stay symmetric) times ``sqrt(2 pi) sigma``.
+    ``L -> -L``, so they stay symmetric, and where the gradient is flat, at
+    the float32 rounding floor) times ``sqrt(2 pi) sigma``.
 
     References
     ----------
@@ -349,26 +352,29 @@ def _gradient_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[f
     d = derivative_stack(image, sigma_m, pixel_size_m, orders, truncate=truncate, prior_blur_px=prior_blur_px)
     lx, ly = d[(0, 1)], d[(1, 0)]
     g = np.hypot(lx, ly)
-    nz = g > 0
-    safe = np.where(nz, g, np.float32(1.0))
-    wx, wy = lx / safe, ly / safe
-    lww = wx * wx * d[(0, 2)] + np.float32(2.0) * wx * wy * d[(1, 1)] + wy * wy * d[(2, 0)]
-    lwww = (wx ** 3 * d[(0, 3)] + np.float32(3.0) * wx * wx * wy * d[(1, 2)]
-            + np.float32(3.0) * wx * wy * wy * d[(2, 1)] + wy ** 3 * d[(3, 0)])
-    field = np.where(nz, lww, np.float32(0.0)).astype(np.float32)
-    allowed = ~(lwww > 0)  # a maximum along w; also flat cells (zero gradient), which carry no line
-
-    factor = step_strength_factor(sigma_m)
-    strength = (g * np.float32(factor)).astype(np.float32)
 
     def components(img):
         dd = derivative_stack(img, sigma_m, pixel_size_m, ((0, 1), (1, 0)), truncate=truncate,
                               prior_blur_px=prior_blur_px)
         return (dd[(0, 1)], dd[(1, 0)])
 
-    gain = _impulse_gain(components, sigma_m, pixel_size_m, truncate=truncate)
+    floor = _impulse_floor(components, sigma_m, pixel_size_m, truncate=truncate, rounding_std=rounding_std)
+    # a gradient no larger than float32 arithmetic can produce (the rounding floor) is flat: its
+    # direction is undefined, it carries no line, and it is a background sample (as an exact zero)
+    nz = g > np.float32(floor * math.sqrt(2.0))
+    safe = np.where(nz, g, np.float32(1.0))
+    wx, wy = lx / safe, ly / safe
+    lww = wx * wx * d[(0, 2)] + np.float32(2.0) * wx * wy * d[(1, 1)] + wy * wy * d[(2, 0)]
+    lwww = (wx ** 3 * d[(0, 3)] + np.float32(3.0) * wx * wx * wy * d[(1, 2)]
+            + np.float32(3.0) * wx * wy * wy * d[(2, 1)] + wy ** 3 * d[(3, 0)])
+    field = np.where(nz, lww, np.float32(0.0)).astype(np.float32)
+    allowed = ~(lwww > 0) | ~nz  # a maximum along w; also flat cells, which carry no line (field 0)
+
+    factor = step_strength_factor(sigma_m)
+    strength = (g * np.float32(factor)).astype(np.float32)
+
     noise_factor = factor * GRADIENT_NOISE_CALIBRATION
-    return LevelSet(field, strength, allowed, (lx, ly), noise_factor, rounding_std * gain * noise_factor)
+    return LevelSet(field, strength, allowed, (lx, ly), noise_factor, floor * noise_factor)
 
 
 #: Detectors by feature name; ``edges`` uses the operator chosen in the settings.

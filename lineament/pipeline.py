@@ -30,7 +30,7 @@ import numpy as np
 from scipy import ndimage
 
 from ._version import __version__
-from .crossings import MAD_TO_SIGMA, Core, Fragment, keep_run, stitch_fragments, trace_level_set
+from .crossings import MAD_TO_SIGMA, ROUNDING_STD_PER_SPAN, Core, Fragment, keep_run, stitch_fragments, trace_level_set
 from .detectors import Detector, detectors_for
 from .errors import InputError, SettingsError
 from .georef import GeoRef
@@ -223,9 +223,13 @@ def _coarse_window(tile: Tile, factor: int) -> tuple[tuple[int, int], Core]:
 
 
 def _centre(values: np.ndarray, valid: np.ndarray, offset: float, z_factor: float) -> np.ndarray:
+    """``(values - offset) * z_factor`` as float32, 0 at invalid cells (one new array)."""
     with np.errstate(invalid="ignore", over="ignore"):
-        arr = np.where(valid, (values - offset) * z_factor, 0).astype(np.float32)
-    return arr
+        arr = values - offset
+        arr *= z_factor
+    if not valid.all():
+        arr = np.where(valid, arr, arr.dtype.type(0))
+    return arr.astype(np.float32, copy=False)
 
 
 def _usable(valid: np.ndarray, edges: tuple[bool, bool, bool, bool], pixel_m: tuple[float, float]) -> np.ndarray | None:
@@ -727,7 +731,7 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
         span = float(np.max(np.abs((ov_values[ov_valid] - offset) * settings.z_factor)))
     if not math.isfinite(span) or span > float(np.finfo(np.float32).max) / 16:
         raise InputError(f"{name}: values overflow float32 after centring and the z factor")
-    rounding_std = 4.0 * float(np.finfo(np.float32).eps) * span
+    rounding_std = ROUNDING_STD_PER_SPAN * span
 
     def task(kind, plan, tile, per_block=0):
         data = None if source.reads_in_worker else source.read(tile.window)

@@ -61,8 +61,17 @@ def test_strength_scales_with_values_and_not_with_offset():
     z = step_image(64, 64, angle_deg=20, offset_px=0.2, blur_px=0.5)
     r1 = log_response(z, 2.0, (1.0, 1.0))
     r2 = log_response(3.0 * z, 2.0, (1.0, 1.0))
+    # up to the rounding of float32 sums: each gradient component within float32_sum_bound * max|v|
+    # (Higham 2002, eq. 3.5), for z and for 3 z, so 6 max|z| bounds in all
+    from functools import partial
+
+    from lineament.crossings import float32_sum_bound, gradient_impulse_responses, step_strength_factor
+
+    hx, hy = gradient_impulse_responses(partial(log_response, sigma_m=2.0, pixel_size_m=(1.0, 1.0)), 2.0, (1.0, 1.0),
+                                        truncate=4.0)
+    bound = step_strength_factor(2.0) * np.sqrt(2.0) * max(float32_sum_bound(hx), float32_sum_bound(hy))
     np.testing.assert_allclose(strength_map(r2, 2.0, (1, 1))[0], 3 * strength_map(r1, 2.0, (1, 1))[0],
-                               rtol=1e-5, atol=1e-5)
+                               rtol=1e-5, atol=bound * 6 * np.abs(z).max())
 
 
 def test_robust_noise_matches_standard_deviation_of_gaussian_noise():
@@ -124,3 +133,33 @@ def test_weak_step_is_dropped_and_low_threshold_continues_a_seeded_line():
     assert len(long) == 1 and span(long[0]) > 95
     assert len(short) == 1 and 40 < span(short[0]) < 60
     assert none == []
+
+
+def test_float32_sum_bound_covers_the_rounding_of_the_log_gradient():
+    # The strength chain (LoG sweeps, then the 5-point gradient) in float32 against the same chain
+    # in float64 with scipy.ndimage.correlate1d: every cell within float32_sum_bound * max|v|
+    # (Higham 2002, eq. 3.5: a float32 sum of n products is within gamma_n * sum|k v|).
+    from functools import partial
+
+    from scipy import ndimage
+
+    from lineament.crossings import _DERIVATIVE_5, float32_sum_bound, gradient_impulse_responses
+    from lineament.scalespace import gaussian_kernel1d
+
+    rng = np.random.default_rng(11)
+    v = (rng.normal(size=(96, 90)) * 40 + 5).astype(np.float32)
+    sigma = 2.5
+    _, gx, gy = strength_map(log_response(v, sigma, (1.0, 1.0)), sigma, (1.0, 1.0))
+    k0, k2 = gaussian_kernel1d(sigma, 0), gaussian_kernel1d(sigma, 2)
+    f = v.astype(np.float64)
+    c1 = partial(ndimage.correlate1d, mode="reflect")
+    ref = sigma ** 2 * (c1(c1(f, k2, axis=1), k0, axis=0) + c1(c1(f, k0, axis=1), k2, axis=0))
+    rx = ndimage.correlate1d(ref, _DERIVATIVE_5, axis=1, mode="nearest")
+    ry = ndimage.correlate1d(ref, _DERIVATIVE_5, axis=0, mode="nearest")
+    hx, hy = gradient_impulse_responses(partial(log_response, sigma_m=sigma, pixel_size_m=(1.0, 1.0)), sigma,
+                                        (1.0, 1.0), truncate=4.0)
+    span = np.abs(v).max()
+    assert np.abs(gx - rx).max() <= float32_sum_bound(hx) * span
+    assert np.abs(gy - ry).max() <= float32_sum_bound(hy) * span
+    # the bound is about 1e-5 of the values here, not vacuous
+    assert float32_sum_bound(hx) < 1e-4

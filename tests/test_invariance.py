@@ -235,7 +235,9 @@ def test_quarter_turn_keeps_noise_level():
     g = utm_georef(161, 161)
     a = extract_array(z, g, s)
     b = extract_array(np.ascontiguousarray(np.rot90(z)), g, s)
-    np.testing.assert_allclose([r.noise for r in b.scales], [r.noise for r in a.scales], rtol=1e-6)
+    # up to float32 rounding: the turn swaps row and column passes, whose sums round differently
+    # (float32 sums of n products agree to about n * 2**-24, Higham 2002; a few 1e-6 here)
+    np.testing.assert_allclose([r.noise for r in b.scales], [r.noise for r in a.scales], rtol=2e-5)
 
 
 @pytest.mark.xfail(strict=True, reason="valley and ridge detectors orient the principal direction by a fixed "
