@@ -93,17 +93,22 @@ def _along_rows(image, kernel, out, mode, step, row0, row1):  # pragma: no cover
         else:
             # every second output: the line split into its even and odd cells, so that each tap
             # reads one of them contiguously (line[2 j + t] is even[j + t // 2] or odd[j + t // 2])
-            even = np.empty(half, np.float32)
-            odd = np.empty(half, np.float32)
-            for m in range(half):
-                even[m] = line[2 * m] if 2 * m < line.size else 0.0
-                odd[m] = line[2 * m + 1] if 2 * m + 1 < line.size else 0.0
-            for t in range(taps):
+            even = np.zeros(half, np.float32)
+            odd = np.zeros(half, np.float32)
+            for m in range((w + taps - 1) // 2):
+                even[m] = line[2 * m]
+                odd[m] = line[2 * m + 1]
+            if (w + taps - 1) % 2:
+                even[(w + taps - 1) // 2] = line[w + taps - 2]
+            for t in range(taps):  # taps in order, so each sum is the one of the full pass
                 kt = kernel[t]
-                src = even if t % 2 == 0 else odd
                 o = t // 2
-                for j in range(wo):
-                    acc[j] += kt * src[j + o]
+                if t % 2 == 0:
+                    for j in range(wo):
+                        acc[j] += kt * even[j + o]
+                else:
+                    for j in range(wo):
+                        acc[j] += kt * odd[j + o]
         for j in range(wo):
             out[i, j] = acc[j]
 
