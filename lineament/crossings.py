@@ -70,8 +70,8 @@ def step_strength_factor(sigma_m: float) -> float:
     return math.sqrt(2.0 * math.pi) * float(sigma_m)
 
 
-def strength_map(response: np.ndarray, sigma_m: float,
-                 pixel_size_m: tuple[float, float]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def strength_map(response: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float], *,
+                 components: bool = True) -> tuple:
     """Per-pixel strength: equivalent step height of the response gradient.
 
     Parameters
@@ -82,18 +82,20 @@ def strength_map(response: np.ndarray, sigma_m: float,
         Scale in metres.
     pixel_size_m : (float, float)
         Pixel size along columns and rows, metres.
+    components : bool
+        False: the gradient components are not kept (None), which saves time.
 
     Returns
     -------
     strength : ndarray, float32
         ``sqrt(2 pi) * sigma * |grad R|`` in the units of the raster values.
-    gx, gy : ndarray, float32
+    gx, gy : ndarray, float32, or None
         Gradient components of ``R`` per metre along columns and rows.
     """
     # one compiled pass: the 5-point differences along rows and columns (border cells repeated),
     # per metre, and their magnitude (lineament._kernels; scipy.ndimage is the reference in tests)
     return gradient_and_magnitude(response, _DERIVATIVE_5, 1.0 / pixel_size_m[0], 1.0 / pixel_size_m[1],
-                                  step_strength_factor(sigma_m))
+                                  step_strength_factor(sigma_m), components=components)
 
 
 def robust_noise(gx: np.ndarray, gy: np.ndarray, usable: np.ndarray, *, max_samples: int = 4_000_000) -> float:

@@ -73,9 +73,10 @@ class Detector:
     reach_factor : float
         The widest kernel reaches ``reach_factor * truncate * sigma``; sets the tile halo.
     run : callable
-        ``run(image, sigma_m, pixel_size_m, *, truncate, rounding_std, prior_blur_px=0) -> LevelSet``;
-        ``pixel_size_m`` is the size of the cells of ``image`` (coarse cells on a decimated level,
-        which already carries ``prior_blur_px`` cells of Gaussian blur).
+        ``run(image, sigma_m, pixel_size_m, *, truncate, rounding_std, prior_blur_px=0, noise=True)
+        -> LevelSet``; ``pixel_size_m`` is the size of the cells of ``image`` (coarse cells on a
+        decimated level, which already carries ``prior_blur_px`` cells of Gaussian blur).  With
+        ``noise=False`` the level set may leave out its noise samples (only tracing follows).
     """
 
     kind: str
@@ -85,7 +86,8 @@ class Detector:
 
 
 def _edge_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float], *,
-                    truncate: float, rounding_std: float, operator: str, prior_blur_px: float = 0.0) -> LevelSet:
+                    truncate: float, rounding_std: float, operator: str, prior_blur_px: float = 0.0,
+                    noise: bool = True) -> LevelSet:
     """Zero crossings of the scale-normalised LoG or DoG (Marr and Hildreth 1980)."""
     if operator == "log":
         response_of = functools.partial(log_response, sigma_m=sigma_m, pixel_size_m=pixel_size_m,
@@ -96,7 +98,7 @@ def _edge_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float
                                         ratio=DOG_RATIO, truncate=truncate, prior_blur_px=prior_blur_px)
         response_scale = 2.0 / (DOG_RATIO - 1.0 / DOG_RATIO)
     resp = response_of(image)
-    strength, gx, gy = strength_map(resp, sigma_m, pixel_size_m)
+    strength, gx, gy = strength_map(resp, sigma_m, pixel_size_m, components=noise)
     factor = step_strength_factor(sigma_m)
     # Floors: input rounding through the filter and the float32 sums (crossings.rounding_floor),
     # and rounding of the response itself (the DoG subtracts two nearly equal blurred images)
@@ -104,7 +106,7 @@ def _edge_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float
     floor_in = rounding_floor(gradient_impulse_responses(response_of, sigma_m, pixel_size_m, truncate=truncate),
                               rounding_std)
     floor_out = rounding_std * response_scale * math.sqrt(130.0) / 12.0 / min(pixel_size_m)
-    return LevelSet(resp, strength, None, (gx, gy), factor, max(floor_in, floor_out) * factor)
+    return LevelSet(resp, strength, None, (gx, gy) if noise else (), factor, max(floor_in, floor_out) * factor)
 
 
 # --------------------------------------------------------------------------- Gaussian derivative stack
@@ -206,7 +208,8 @@ def _orientation_flips(px: np.ndarray, py: np.ndarray) -> np.ndarray:
 
 
 def _curvature_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float], *,
-                         truncate: float, rounding_std: float, sign: int, prior_blur_px: float = 0.0) -> LevelSet:
+                         truncate: float, rounding_std: float, sign: int, prior_blur_px: float = 0.0,
+                         noise: bool = True) -> LevelSet:
     """Valley (``sign=+1``) or ridge (``sign=-1``) axes from the Hessian at one scale.
 
     The principal direction ``p`` is the eigenvector of the Hessian whose
@@ -322,7 +325,8 @@ GRADIENT_NOISE_CALIBRATION = 1.1
 
 
 def _gradient_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float], *,
-                        truncate: float, rounding_std: float, prior_blur_px: float = 0.0) -> LevelSet:
+                        truncate: float, rounding_std: float, prior_blur_px: float = 0.0,
+                        noise: bool = True) -> LevelSet:
     """Gradient edges (Canny 1986) at one scale, as a level set.
 
     Non-maximum suppression of the Gaussian gradient magnitude along the

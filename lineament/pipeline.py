@@ -293,7 +293,7 @@ def _scale_halo(plan: RunPlan, sp: ScalePlan) -> tuple[int, int]:
     return (out[0], out[1])
 
 
-def _window_level_sets(plan: RunPlan, tile: Tile, values: np.ndarray, valid: np.ndarray):
+def _window_level_sets(plan: RunPlan, tile: Tile, values: np.ndarray, valid: np.ndarray, *, noise: bool = True):
     """Yield (scale index, detector index, LevelSet, usable mask, filled window, factor, sub-tile) for one window.
 
     Each scale is filtered on the part of the window its own halo needs
@@ -304,6 +304,8 @@ def _window_level_sets(plan: RunPlan, tile: Tile, values: np.ndarray, valid: np.
     scale with ``factor > 1`` is filtered on the decimated grid (its
     LevelSet and usable mask are on that grid); the filled window is the
     full-resolution one, made only when best scales are searched.
+    With ``noise=False`` only tracing follows, so detectors may leave out
+    their noise samples.
     """
     s = plan.settings
     shape = plan.georef.shape
@@ -339,7 +341,7 @@ def _window_level_sets(plan: RunPlan, tile: Tile, values: np.ndarray, valid: np.
                               s.void_margin_sigmas * sp.sigma_m, f)
         for di, det in enumerate(plan.detectors):
             ls = det.run(filled, sp.sigma_m, pixel, truncate=s.truncate, rounding_std=plan.rounding_std,
-                         prior_blur_px=blur)
+                         prior_blur_px=blur, noise=noise)
             yield si, di, ls, usable, fine_filled, f, sub
 
 
@@ -368,7 +370,7 @@ def _noise_from(level_sets, core: Core, per_block: int) -> dict:
 
 
 def _trace_tile(plan: RunPlan, tile: Tile, values, valid) -> TileOutput:
-    return _trace_from(plan, _window_level_sets(plan, tile, values, valid))
+    return _trace_from(plan, _window_level_sets(plan, tile, values, valid, noise=False))
 
 
 def _profile_sum(plan: RunPlan, filled: np.ndarray, tile: Tile, kind: str, rows: np.ndarray, cols: np.ndarray,

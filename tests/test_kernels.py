@@ -143,3 +143,15 @@ def test_every_second_cell_is_the_full_pass_sliced(shape, axis):
         assert np.all(np.abs(half - ref) <= _gamma(kernel.size + 2) * _abs_pass(img, kernel, axis, "reflect")[cut] + 1e-30)
     with pytest.raises(ValueError):
         correlate1d(img, gaussian_kernel1d(2.0, 0), axis, step=3)
+
+
+def test_magnitude_alone_is_the_same_magnitude():
+    # components=False writes only the magnitude: the same bits as with the components
+    from lineament._kernels import gradient_and_magnitude
+
+    img = np.random.default_rng(5).normal(size=(300, 257)).astype(np.float32)
+    stencil = np.array([1.0, -8.0, 0.0, 8.0, -1.0]) / 12.0
+    mag, gx, gy = gradient_and_magnitude(img, stencil, 0.1, 0.05, 3.0)
+    alone, no_x, no_y = gradient_and_magnitude(img, stencil, 0.1, 0.05, 3.0, components=False)
+    assert no_x is None and no_y is None and gx.shape == img.shape
+    assert np.array_equal(alone, mag)
