@@ -1,10 +1,20 @@
 """Compiled zero-crossing tracer: marching squares, hysteresis and ownership in one pass.
 
-:func:`trace_compiled` returns what
+:func:`trace_compiled` returns the pieces and fragments
 :func:`lineament.crossings.trace_level_set_reference` returns (every zero
 crossing of the window traced, strong runs kept), computed by numba-compiled
 code instead of ``skimage.measure.find_contours`` plus a Python loop over
 contours.  Only the kept pieces and the fragments reach Python.
+
+Only vertices that can be part of a kept run are assembled.  In real use
+``low`` is a multiple of the noise level and most crossing vertices are
+weaker (about three in four on a LoG response of terrain with the default
+thresholds), so :func:`_strong_runs` samples the strength of every crossed
+pixel edge as marching squares reaches it, gives a point id only to
+vertices that pass (nearest pixel in the mask, strength >= ``low``), and
+links only segments between two of those.  The whole level set is still
+assembled by :func:`level_contours` (``find_contours``' output) and when a
+passing vertex lies on a pixel centre (below).
 
 How the result is kept identical to the reference
 -------------------------------------------------
@@ -12,52 +22,66 @@ How the result is kept identical to the reference
   of the window at level 0, with the vertex formula, the ``>`` test, the
   case table and the saddle rule (low values fully connected) of
   ``find_contours`` with its defaults.  Vertex coordinates are bit-identical.
-* **Assembly.**  ``find_contours`` joins the cell segments, in raster
-  order, through dictionaries keyed by vertex coordinates.  When no vertex
-  falls on a pixel centre (no exact zero, no rounding onto a centre: the
-  usual case), every vertex lies on one pixel edge and starts and ends at
-  most one segment; that assembly then numbers each contour by its first
-  segment in raster order and closes a ring with its last one, so the
-  contours are the chains and cycles of the successor map, ordered by
-  their first segment, a ring starting at the end of its last segment
-  (:func:`_contours_chains`).  Otherwise the dictionary assembly itself is
-  replayed with integer point ids (one per distinct coordinate: per
-  crossed pixel edge, or per pixel centre) and linked lists for the growing
-  contours (:func:`_contours`), which also covers several contours meeting
-  at a pixel centre.  Either way every contour comes out with the
-  vertices, orientation and start vertex of ``find_contours``, in its
-  order.  Orientation and start vertex would not matter anyway for what is
-  returned: rings kept whole are rotated to their smallest vertex by
-  :func:`~lineament.crossings.canonical_ring`, and fragments are joined
-  across tiles by :func:`~lineament.crossings.stitch_fragments`.
+* **Runs without whole contours.**  ``find_contours`` joins the cell
+  segments, in raster order, through dictionaries keyed by vertex
+  coordinates; each segment ends up in one contour, between two consecutive
+  vertices.  A vertex that is not on a pixel centre lies on one pixel edge
+  and starts and ends at most one segment (a crossed edge starts a segment
+  in exactly one of its two cells).  So among such vertices that pass, the
+  segments between two of them form chains and cycles, and those are the
+  hysteresis runs of the reference: a run is a maximal stretch of passing
+  vertices along a contour, with the contour's orientation.  A run that
+  wraps around the start of a closed contour in the reference is an open
+  chain here, with the same vertices in the same order.  A cycle is a
+  closed contour that passes everywhere (a ring kept whole); all its
+  segments are linked, so it starts where ``find_contours`` starts it, at
+  the end of its last segment in raster order (:func:`_walk_chains`),
+  which decides where the fragments of a ring cut by the core begin.
+  Vertices on pixel centres (exact zeros, or rounding onto a centre) may
+  join several segments; when one of them passes, the whole level set is
+  assembled instead, by replaying the dictionary assembly with integer
+  point ids and linked lists (:func:`_contours`), and the rule is applied
+  to every contour as in the reference.  Vertices on centres that do not
+  pass take no part in any run and do not stop the pruned assembly.  Cells
+  with a NaN corner are skipped, as ``find_contours`` skips them; a vertex
+  with NaN coordinates (next to a NaN or an infinity) never passes.
+* **Whole level set.**  :func:`level_contours` returns ``find_contours``'
+  contours: without vertices on pixel centres they are the chains and
+  cycles of the successor map of all segments, ordered by their first
+  segment (:func:`_contours_chains`), otherwise the replayed assembly.
 * **Strength and rule.**  Vertex strength is Keys cubic convolution with
   the tap and summation order of :func:`~lineament.crossings.sample_cubic`,
-  clipped at 0 and rounded to float32.  Keep flags, hysteresis runs
-  (wrapping around closed contours), core ownership of segment midpoints,
-  :func:`~lineament.crossings.keep_run` (NumPy's pairwise summation
-  reproduced for the float32 mean and the float64 path length) and
-  :func:`~lineament.crossings.canonical_ring` follow
-  :func:`lineament.crossings.trace_level_set_reference` step by step, so the
-  pieces and fragments come out in the same order with the same values.
-  The comparison of float32 strengths with ``low`` follows NumPy's rules
-  for Python and NumPy scalars (float32 for a Python ``float``, float64 for
-  a NumPy ``float64``).
+  clipped at 0 and rounded to float32.  Hysteresis runs, core ownership of
+  segment midpoints, :func:`~lineament.crossings.keep_run` (NumPy's
+  pairwise summation reproduced for the float32 mean and the float64 path
+  length) and :func:`~lineament.crossings.canonical_ring` follow
+  :func:`lineament.crossings.trace_level_set_reference` step by step on
+  each run (:func:`_select`), so every piece and fragment comes out with
+  the same vertices in the same direction, the same strengths and the same
+  open flags.  The comparison of float32 strengths with ``low`` follows
+  NumPy's rules for Python and NumPy scalars (float32 for a Python
+  ``float``, float64 for a NumPy ``float64``).
+* **Order.**  The reference lists pieces and fragments contour by contour;
+  here runs are found without their contours, so the lists come in the
+  order the runs are found (open runs by the point id of their first
+  vertex, which follows the rows, then rings).  Callers do not depend on
+  the order: :mod:`lineament.pipeline` sorts pieces by their first vertex
+  and :func:`~lineament.crossings.stitch_fragments` joins fragments by
+  their end vertices.
 
-Strengths are only sampled at vertices whose nearest pixel is in the mask;
-other vertices cannot be kept, so their strength is never returned.  They
-are sampled in point order (close to raster order, so the strength map is
-read cache-friendly), and with 4 taps instead of 16: a vertex lies on a
-pixel edge, where the Keys weights across the edge are exactly (0, 1, 0, 0)
-(:func:`_sample_on_edge`; all 16 taps when the strength map has a
-non-finite value, since ``0 * inf`` is not 0; the taps are read without
-clamping away from the window's sides).  Along a contour, coordinates and
-strengths are gathered only for the vertices of hysteresis runs, and the
-sustained rule computes the path length only for runs whose mean strength
-passes and that are long enough to reach ``sustained_length_px``.
+Strengths are sampled with 4 taps instead of 16: a vertex lies on a pixel
+edge, where the Keys weights across the edge are exactly (0, 1, 0, 0)
+(:func:`_sample_on_edge`), read without clamping away from the window's
+sides.  All 16 taps are used where a row the taps may come from has a NaN
+or an infinity (``0 * inf`` is not 0); rows are checked just ahead of the
+row pass.  The sustained rule computes the path length only for runs whose
+mean strength passes and that are long enough to reach
+``sustained_length_px``.
 
-Marching squares works a row of pixels at a time in branch-free passes:
-sign bits, crossed edges and crossing cells compacted into lists, then
-vertex coordinates (one division each) for crossed edges only.
+Marching squares works a row of pixels at a time: sign bits, crossed edges
+compacted into lists, then for crossed edges only the vertex coordinates
+(one division each) and strengths, written without branches on whether
+the vertex passes, then the links of the passing vertices.
 
 Point and contour ids are int32, so a window holds at most 2**28 pixels.
 Everything runs in one thread; numba caches the machine code
@@ -529,10 +553,28 @@ def _contours_chains(field, table):
                 sidx[p] = nseg
                 state[q] = 1
                 nseg += 1
+    out, bounds = _walk_chains(succ, sidx, state, npt, nseg, True)
+    return True, pt_r[:npt], pt_c[:npt], out, bounds
+
+
+@numba.njit(**_JIT)
+def _walk_chains(succ, sidx, state, npt, nkey, by_first_segment):
+    """Chains and cycles of a successor map as contours: vertex ids ``verts`` and ``bounds``.
+
+    ``succ[p]`` is the point after ``p`` (-1: none), ``sidx[p]`` the raster
+    index of the segment from ``p``, ``state[p]`` 1 when ``p`` has a
+    predecessor (0 otherwise; set to 2 here when emitted), for the first
+    ``npt`` points; segment indices are distinct and below ``nkey``.  Open
+    chains start at a point without a predecessor; a cycle starts at the end
+    of its last segment and repeats that point at its end.  Contours come
+    out ordered by their first segment (find_contours' order) when
+    ``by_first_segment``; else open chains, then cycles, each in the order
+    of the point id they are found from (point ids follow the rows).
+    """
     # open chains, then cycles; each with the index of its first segment
-    verts = np.empty(nseg + npt, np.int32)
-    starts = np.empty(nseg + 1, np.int64)
-    keys = np.empty(nseg + 1, np.int64)
+    verts = np.empty(2 * npt, np.int32)  # each point once, the start of a cycle again at its end
+    starts = np.empty(npt + 1, np.int64)
+    keys = np.empty(npt + 1, np.int64)
     nv = 0
     nc = 0
     for p in range(npt):
@@ -586,25 +628,31 @@ def _contours_chains(field, table):
         keys[nc] = first
         nc += 1
     starts[nc] = nv
-    # order by first segment: the keys are distinct segment indices, so a table of them sorts
-    by_key = np.full(nseg + 1, -1, np.int32)
+    bounds = np.empty(nc + 1, np.int32)
+    if not by_first_segment:
+        for k in range(nc + 1):
+            bounds[k] = starts[k]
+        return verts[:nv], bounds
+    # order by first segment: the keys are distinct, so a table of them sorts
+    by_key = np.full(nkey, -1, np.int32)
     for k in range(nc):
         by_key[keys[k]] = k
+    order = np.empty(nc, np.int64)
+    m = 0
+    for key in range(nkey):
+        if by_key[key] >= 0:
+            order[m] = by_key[key]
+            m += 1
     out = np.empty(nv, np.int32)
-    bounds = np.empty(nc + 1, np.int32)
     bounds[0] = 0
     j = 0
-    m = 0
-    for key in range(nseg):
-        k = by_key[key]
-        if k < 0:
-            continue
+    for m in range(nc):
+        k = order[m]
         for i in range(starts[k], starts[k + 1]):
             out[j] = verts[i]
             j += 1
-        m += 1
-        bounds[m] = j
-    return True, pt_r[:npt], pt_c[:npt], out, bounds
+        bounds[m + 1] = j
+    return out, bounds
 
 
 @numba.njit(**_JIT)
@@ -619,7 +667,7 @@ def _level_set(field, table):
 # --------------------------------------------------------------------------- strength, runs, rule
 
 
-@numba.njit(**_JIT)
+@numba.njit(inline="always", **_JIT)
 def _keys_weights(t):
     t2 = t * t
     t3 = t * t * t
@@ -698,6 +746,101 @@ def _all_finite(a):
         if not math.isfinite(v):
             return False
     return True
+
+
+@numba.njit(inline="always", **_JIT)
+def _strength_on_row(strength, finite, ri, lc):
+    """Vertex strength at (``ri``, ``lc``) on pixel row ``ri``: :func:`_sample_cubic`, clipped at 0.
+
+    For finite ``strength`` away from the side columns the 4 taps along the
+    row are read unclamped (:func:`_sample_on_edge`'s sum); ``lc`` is finite.
+    """
+    w = strength.shape[1]
+    c0 = math.floor(lc)
+    ic0 = int(c0)
+    if finite and 1 <= ic0 <= w - 3:
+        wc = _keys_weights(lc - c0)
+        v = 0.0
+        v += wc[0] * np.float64(strength[ri, ic0 - 1])
+        v += wc[1] * np.float64(strength[ri, ic0])
+        v += wc[2] * np.float64(strength[ri, ic0 + 1])
+        v += wc[3] * np.float64(strength[ri, ic0 + 2])
+        if v == 0.0:
+            v = _sample_cubic(strength, ri * 1.0, lc)
+    elif finite:
+        v = _sample_on_edge(strength, ri * 1.0, lc)
+    else:
+        v = _sample_cubic(strength, ri * 1.0, lc)
+    if not (v >= 0.0 or v != v):  # np.maximum(v, 0.0)
+        v = 0.0
+    return v
+
+
+@numba.njit(inline="always", **_JIT)
+def _strength_on_column(strength, finite, lr, ci):
+    """:func:`_strength_on_row` for a vertex (``lr``, ``ci``) on pixel column ``ci``."""
+    h = strength.shape[0]
+    r0 = math.floor(lr)
+    ir0 = int(r0)
+    if finite and 1 <= ir0 <= h - 3:
+        wr = _keys_weights(lr - r0)
+        v = 0.0
+        v += wr[0] * np.float64(strength[ir0 - 1, ci])
+        v += wr[1] * np.float64(strength[ir0, ci])
+        v += wr[2] * np.float64(strength[ir0 + 1, ci])
+        v += wr[3] * np.float64(strength[ir0 + 2, ci])
+        if v == 0.0:
+            v = _sample_cubic(strength, lr, ci * 1.0)
+    elif finite:
+        v = _sample_on_edge(strength, lr, ci * 1.0)
+    else:
+        v = _sample_cubic(strength, lr, ci * 1.0)
+    if not (v >= 0.0 or v != v):  # np.maximum(v, 0.0)
+        v = 0.0
+    return v
+
+
+@numba.njit(inline="always", **_JIT)
+def _passes_low(sv, low32, low64, low_in_f64):
+    """``sv >= low`` for a float32 strength, compared as NumPy compares it (see the module docstring)."""
+    if low_in_f64:
+        return np.float64(sv) >= low64
+    return sv >= low32
+
+
+@numba.njit(**_JIT)
+def _vertex_strengths(pt_r, pt_c, strength, mask, finite, low32, low64, low_in_f64):
+    """Strength (float32) and keep flag (strength >= low, nearest pixel in ``mask``) of every point.
+
+    Points whose nearest pixel is outside the mask get strength 0 and no
+    keep flag (they cannot be in a run).  Sampled in point order (close to
+    raster order: the strength map is read cache-friendly).
+    """
+    h, w = mask.shape
+    npt = pt_r.size
+    s_pt = np.zeros(npt, np.float32)
+    keep_pt = np.zeros(npt, np.bool_)
+    for p in range(npt):
+        lr = pt_r[p]
+        lc = pt_c[p]
+        if lr != lr or lc != lc:  # next to a NaN of the field: on no contour
+            continue
+        ri = min(max(int(np.rint(lr)), 0), h - 1)
+        ci = min(max(int(np.rint(lc)), 0), w - 1)
+        if not mask[ri, ci]:
+            continue
+        if lr == ri:
+            v = _strength_on_row(strength, finite, ri, lc)
+        elif lc == ci:
+            v = _strength_on_column(strength, finite, lr, ci)
+        else:  # not on a pixel edge (not produced by marching squares)
+            v = _sample_cubic(strength, lr, lc)
+            if not (v >= 0.0 or v != v):
+                v = 0.0
+        sv = np.float32(v)
+        s_pt[p] = sv
+        keep_pt[p] = _passes_low(sv, low32, low64, low_in_f64)
+    return s_pt, keep_pt
 
 
 @numba.njit(**_JIT)
@@ -796,12 +939,13 @@ def _keep_run(pr, pc, ps, m, high, use_sustained, sustained, sustained_length, d
         return True
     if not use_sustained:
         return False
-    # the mean first, and the path only when it can reach sustained_length: a segment joins two
-    # points on the edges of one cell, so it is at most sqrt(2) < 1.5 long (the result is the same)
+    # a segment joins two points on the edges of one cell, so it is at most sqrt(2) < 1.5 long:
+    # a run too short to reach sustained_length is dropped first, then the mean, and the path
+    # only when both pass (the result is the same)
+    if 1.5 * (m - 1) < sustained_length:
+        return False
     mean = np.float32(np.float64(_pairwise_sum(ps, 0, m)) / np.float64(m))
     if not np.float64(mean) >= sustained:
-        return False
-    if 1.5 * (m - 1) < sustained_length:
         return False
     for i in range(m - 1):
         dpath[i] = math.hypot(pr[i + 1] - pr[i], pc[i + 1] - pc[i])
@@ -809,7 +953,7 @@ def _keep_run(pr, pc, ps, m, high, use_sustained, sustained, sustained_length, d
     return path >= sustained_length
 
 
-@numba.njit(**_JIT)
+@numba.njit(inline="always", **_JIT)
 def _wrap(i, n):
     """``i % n`` for ``0 <= i``, without a division (here ``i < 2 * n``)."""
     while i >= n:
@@ -818,15 +962,16 @@ def _wrap(i, n):
 
 
 @numba.njit(**_JIT)
-def _select(pt_r, pt_c, verts, bounds, strength, mask, low32, low64, low_in_f64, high, use_sustained,
-            sustained, sustained_length, off_r, off_c, core_r0, core_c0, core_r1, core_c1):
+def _select(pt_r, pt_c, verts, bounds, s_pt, keep_pt, high, use_sustained, sustained, sustained_length,
+            off_r, off_c, core_r0, core_c0, core_r1, core_c1):
     """Runs kept or shared along every contour, as in crossings._trace.
 
-    Returns flat piece arrays (rows, cols, strength, bounds) and flat
+    ``s_pt`` and ``keep_pt`` are the strength and keep flag of each point;
+    ``keep_pt`` empty means every point is kept (the runs of
+    :func:`_strong_runs` as contours: each open one is its own single run,
+    each cycle a ring kept whole).  Returns flat piece arrays (rows, cols, strength, bounds) and flat
     fragment arrays (rows, cols, strength, bounds, start_open, end_open).
     """
-    h, w = mask.shape
-    finite = _all_finite(strength)
     lo_r = core_r0 - 0.5
     hi_r = core_r1 - 0.5
     lo_c = core_c0 - 0.5
@@ -861,55 +1006,6 @@ def _select(pt_r, pt_c, verts, bounds, strength, mask, low32, low64, low_in_f64,
     nf_v = 0
     nf_k = 0
 
-    # strength and keep flag of every vertex, in point order (raster order: cache friendly)
-    npt = pt_r.size
-    s_pt = np.zeros(npt, np.float32)
-    keep_pt = np.zeros(npt, np.bool_)
-    for p in range(npt):
-        lr = pt_r[p]
-        lc = pt_c[p]
-        if lr != lr or lc != lc:  # next to a NaN of the field: on no contour
-            continue
-        ri = min(max(int(np.rint(lr)), 0), h - 1)
-        ci = min(max(int(np.rint(lc)), 0), w - 1)
-        if mask[ri, ci]:
-            if finite and lr == ri and 2 <= ci < w - 2:
-                # on a row, away from the side columns: the 4 taps of _sample_on_edge, unclamped
-                c0 = math.floor(lc)
-                wc = _keys_weights(lc - c0)
-                ic0 = int(c0)
-                v = 0.0
-                v += wc[0] * np.float64(strength[ri, ic0 - 1])
-                v += wc[1] * np.float64(strength[ri, ic0])
-                v += wc[2] * np.float64(strength[ri, ic0 + 1])
-                v += wc[3] * np.float64(strength[ri, ic0 + 2])
-                if v == 0.0:
-                    v = _sample_cubic(strength, lr, lc)
-            elif finite and lc == ci and 2 <= ri < h - 2:
-                # on a column, away from the first and last rows: likewise
-                r0 = math.floor(lr)
-                wr = _keys_weights(lr - r0)
-                ir0 = int(r0)
-                v = 0.0
-                v += wr[0] * np.float64(strength[ir0 - 1, ci])
-                v += wr[1] * np.float64(strength[ir0, ci])
-                v += wr[2] * np.float64(strength[ir0 + 1, ci])
-                v += wr[3] * np.float64(strength[ir0 + 2, ci])
-                if v == 0.0:
-                    v = _sample_cubic(strength, lr, lc)
-            elif finite:
-                v = _sample_on_edge(strength, lr, lc)
-            else:
-                v = _sample_cubic(strength, lr, lc)
-            if not (v >= 0.0 or v != v):  # np.maximum(v, 0.0)
-                v = 0.0
-            sv = np.float32(v)
-            s_pt[p] = sv
-            if low_in_f64:
-                keep_pt[p] = np.float64(sv) >= low64
-            else:
-                keep_pt[p] = sv >= low32
-
     for k in range(bounds.size - 1):
         a0 = bounds[k]
         n = bounds[k + 1] - a0
@@ -920,28 +1016,33 @@ def _select(pt_r, pt_c, verts, bounds, strength, mask, low32, low64, low_in_f64,
         closed = n > 3 and pt_r[first] == pt_r[last] and pt_c[first] == pt_c[last]
         if closed:
             n -= 1
-        # keep flags first; coordinates and strengths are gathered only for the vertices of runs
-        any_keep = False
-        for i in range(n):
-            kp = keep_pt[verts[a0 + i]]
-            keep[i] = kp
-            any_keep |= kp
-        if not any_keep:
-            continue
-        # hysteresis runs of keep (every keep vertex is a seed), wrapping on closed contours
         nruns = 0
         all_keep = True
         shift = 0
-        for i in range(n):
-            if not keep[i]:
-                all_keep = False
-                shift = i
-                break
-        if closed and all_keep:
+        if keep_pt.size == 0:  # a run of _strong_runs
             run_a[0] = 0
             run_b[0] = n
             nruns = 1
         else:
+            # keep flags first; coordinates and strengths are gathered only for the vertices of runs
+            any_keep = False
+            for i in range(n):
+                kp = keep_pt[verts[a0 + i]]
+                keep[i] = kp
+                any_keep |= kp
+            if not any_keep:
+                continue
+            # hysteresis runs of keep (every keep vertex is a seed), wrapping on closed contours
+            for i in range(n):
+                if not keep[i]:
+                    all_keep = False
+                    shift = i
+                    break
+        if closed and all_keep:
+            run_a[0] = 0
+            run_b[0] = n
+            nruns = 1
+        elif keep_pt.size > 0:
             if not closed:
                 shift = 0
             i = 0
@@ -1039,6 +1140,219 @@ def _select(pt_r, pt_c, verts, bounds, strength, mask, low32, low64, low_in_f64,
             f_r[:nf_v], f_c[:nf_v], f_s[:nf_v], f_b[:nf_k + 1], f_so[:nf_k], f_eo[:nf_k])
 
 
+# --------------------------------------------------------------------------- strong runs only
+
+
+@numba.njit(error_model="numpy", **_JIT)
+def _strong_runs(field, strength, mask, low32, low64, low_in_f64, table):
+    """The hysteresis runs of the zero level set of ``field``, without assembling whole contours.
+
+    Marching squares a row at a time as in :func:`_contours_chains`; each
+    crossed pixel edge gets its vertex strength at once, and only vertices
+    that pass (nearest pixel in ``mask``, strength >= low) get a point id.
+    Only segments joining two such points are linked, so the chains and
+    cycles of that successor map are the runs: a run is a maximal stretch of
+    passing vertices along a contour, consecutive contour vertices are the
+    ends of one segment, and a vertex on a pixel edge ends at most one
+    segment and starts at most one.  A cycle is a closed contour that passes
+    everywhere, with find_contours' start vertex (:func:`_walk_chains`).
+
+    Returns ``ok``, the points' coordinates and float32 strengths, and the
+    runs as vertex ids and bounds (cycles repeat their first point; open runs
+    first).  ``ok`` is False (and the arrays are empty) when a passing
+    vertex lies on a pixel centre, where several segments may meet;
+    :func:`_contours` then assembles the whole level set.
+    """
+    h, w = field.shape
+    cap = 1024 + (h * w) // 32
+    # rows of the strength map without NaN or infinity, checked just ahead of use: where all the
+    # rows a vertex's 16 taps can come from are finite, its 4 taps on the pixel edge give the sum
+    finite_row = np.empty(h, np.bool_)
+    n_checked = 0
+    pt_r = np.empty(cap, np.float64)
+    pt_c = np.empty(cap, np.float64)
+    pt_s = np.empty(cap, np.float32)
+    succ = np.empty(cap, np.int32)
+    sidx = np.empty(cap, np.int32)
+    state = np.empty(cap, np.uint8)  # 1: has a predecessor, 2: emitted
+    # point id (-1: the vertex does not pass) of the crossed edges of the current band of cells;
+    # entries of edges that are not crossed are stale, and never read
+    h_top = np.empty(w, np.int32)
+    h_bot = np.empty(w, np.int32)
+    v_row = np.empty(w, np.int32)
+    up_top = np.empty(w, np.uint8)
+    up_bot = np.empty(w, np.uint8)
+    pos = np.empty(w, np.int32)
+    hpos = np.empty(w, np.int32)
+    ids = np.empty(4, np.int32)
+    npt = 0
+    # passing vertices: ids top0 .. top1 - 1 on row r0, bot0 .. bot1 - 1 on row r1, bot1 .. npt - 1
+    # between the two rows
+    top0 = top1 = bot0 = bot1 = 0
+    empty_f = np.empty(0, np.float64)
+    empty_s = np.empty(0, np.float32)
+    empty_i = np.empty(0, np.int32)
+    odd_top = False  # a NaN or infinite value on row r0
+    odd_bot = False  # on row r1
+    for c in range(w):
+        v = field[0, c]
+        up_bot[c] = v > 0.0
+        odd_bot |= (v - v) != 0.0  # NaN or infinite
+    nh = 0
+    for c in range(w - 1):
+        hpos[nh] = c
+        nh += up_bot[c] != up_bot[c + 1]
+    for r0 in range(-1, h - 1):
+        r1 = r0 + 1
+        if r0 >= 0:
+            h_top, h_bot = h_bot, h_top
+            up_top, up_bot = up_bot, up_top
+            odd_top = odd_bot
+            odd_bot = False
+            for c in range(w):
+                v = field[r1, c]
+                up_bot[c] = v > 0.0
+                odd_bot |= (v - v) != 0.0  # NaN or infinite
+            # one pass: crossed horizontal edges on row r1 and crossed vertical edges between rows
+            # r0 and r1 compacted into lists; two independent counters
+            nh = 0
+            nv = 0
+            for c in range(w - 1):
+                b0 = up_bot[c]
+                hpos[nh] = c
+                nh += b0 != up_bot[c + 1]
+                pos[nv] = c
+                nv += up_top[c] != b0
+            c = w - 1
+            pos[nv] = c
+            nv += up_top[c] != up_bot[c]
+        else:
+            nv = 0
+        if npt + nh + nv + 1 > pt_r.size:  # and a spare slot
+            need = npt + nh + nv + 1
+            pt_r = _grow(pt_r, need)
+            pt_c = _grow(pt_c, need)
+            pt_s = _grow(pt_s, need)
+            succ = _grow(succ, need)
+            sidx = _grow(sidx, need)
+            state = _grow(state, need)
+        # vertices and strengths of the crossed edges (coordinates as in _fraction: b != a there).
+        # Without branches on the outcome: every vertex is written at npt, and npt advances when it
+        # passes; a vertex next to a NaN or an infinity of the field (only in rows with one) may
+        # have NaN coordinates, and then does not pass.
+        mrow = mask[r1]
+        fr1 = r1 * 1.0
+        centre = False
+        top0 = bot0
+        top1 = bot1
+        bot0 = npt
+        while n_checked < min(r1 + 4, h):
+            fine = True
+            for v in strength[n_checked]:
+                fine &= (v - v) == 0.0
+            finite_row[n_checked] = fine
+            n_checked += 1
+        finite_h = True  # rows r1 - 1 .. r1 + 2 (the taps of a vertex on row r1)
+        for r in range(max(r1 - 1, 0), min(r1 + 3, h)):
+            finite_h &= finite_row[r]
+        finite_v = True  # rows r0 - 1 .. r0 + 3 (of a vertex between rows r0 and r1, or on row r1)
+        for r in range(max(r0 - 1, 0), min(r0 + 4, h)):
+            finite_v &= finite_row[r]
+        for i in range(nh):
+            c = hpos[i]
+            a = np.float64(field[r1, c])
+            b = np.float64(field[r1, c + 1])
+            x = c + (0.0 - a) / (b - a)
+            if odd_bot and x != x:
+                h_bot[c] = -1
+                continue
+            ci = min(max(int(np.rint(x)), 0), w - 1)
+            sv = np.float32(_strength_on_row(strength, finite_h, r1, x))
+            ok = mrow[ci] & _passes_low(sv, low32, low64, low_in_f64)
+            pt_r[npt] = fr1
+            pt_c[npt] = x
+            pt_s[npt] = sv
+            succ[npt] = -1
+            state[npt] = 0
+            h_bot[c] = npt if ok else -1
+            centre |= ok & (x == math.floor(x))
+            npt += ok
+        bot1 = npt
+        fr0 = r0 * 1.0
+        odd_band = odd_top or odd_bot
+        for i in range(nv):
+            c = pos[i]
+            a = np.float64(field[r0, c])
+            b = np.float64(field[r1, c])
+            y = fr0 + (0.0 - a) / (b - a)
+            if odd_band and y != y:
+                v_row[c] = -1
+                continue
+            ri = min(max(int(np.rint(y)), 0), h - 1)
+            sv = np.float32(_strength_on_column(strength, finite_v, y, c))
+            ok = mask[ri, c] & _passes_low(sv, low32, low64, low_in_f64)
+            pt_r[npt] = y
+            pt_c[npt] = c * 1.0
+            pt_s[npt] = sv
+            succ[npt] = -1
+            state[npt] = 0
+            v_row[c] = npt if ok else -1
+            centre |= ok & (y == math.floor(y))
+            npt += ok
+        if centre:
+            return False, empty_f, empty_f, empty_s, empty_i, empty_i
+        if r0 < 0:
+            continue
+        # Link each passing vertex to the next one.  A crossed edge starts a segment in exactly one of
+        # its two cells (find_contours' case table): a row edge in the cell below when its left
+        # pixel is high, else in the cell above; a column edge in the cell to its left when its top
+        # pixel is high, else in the cell to its right.  The segment's key is its index in raster
+        # order of cells (two per saddle cell), the order in which find_contours adds segments.
+        # A vertex that starts no segment in this band, or whose segment ends at a vertex that does
+        # not pass, writes to the spare last slot instead (no branch on the outcome).
+        spare = succ.size - 1
+        n_top = top1 - top0
+        for i in range(n_top + npt - bot0):
+            if i < n_top:  # on row r0: the top edge of cell c
+                p = top0 + i
+                c = int(pt_c[p])  # the edge's first column (no passing vertex is on a pixel centre)
+                c0 = c
+                e = 0
+                here = up_top[c] == 1
+            else:
+                p = bot0 + i - n_top
+                c = int(pt_c[p])
+                if p < bot1:  # on row r1: the bottom edge of cell c
+                    c0 = c
+                    e = 1
+                    here = up_bot[c + 1] == 1
+                else:  # on column c between the rows: the right edge of cell c - 1 or the left of cell c
+                    hi = np.int64(up_top[c])
+                    c0 = c - hi
+                    e = 2 + hi
+                    here = (c0 >= 0) & (c0 <= w - 2)
+            c0 = min(max(c0, 0), w - 2)
+            c1 = c0 + 1
+            if odd_band and (math.isnan(field[r0, c0]) or math.isnan(field[r0, c1])
+                             or math.isnan(field[r1, c0]) or math.isnan(field[r1, c1])):
+                here = False  # find_contours skips cells with a NaN corner
+            case = up_top[c0] | (up_top[c1] << 1) | (up_bot[c0] << 2) | (up_bot[c1] << 3)
+            k = 0 if table[case, 0] == e else 2
+            t = table[case, k + 1] & 3  # the edge where the segment ends
+            ids[0] = h_top[c0]
+            ids[1] = h_bot[c0]
+            ids[2] = v_row[c0]
+            ids[3] = v_row[c1]
+            q = ids[t]
+            link = here & (q >= 0)
+            at = p if link else spare
+            succ[at] = q
+            sidx[at] = 2 * (r0 * (w - 1) + c0) + (k >> 1)
+            state[q if link else spare] = 1
+    verts, bounds = _walk_chains(succ, sidx, state, npt, 2 * (h - 1) * (w - 1), False)
+    return True, pt_r[:npt], pt_c[:npt], pt_s[:npt], verts, bounds
+
+
 # --------------------------------------------------------------------------- Python interface
 
 
@@ -1085,9 +1399,10 @@ def trace_compiled(field: np.ndarray, strength: np.ndarray, usable: np.ndarray, 
     """Trace every zero crossing of one window in compiled code; keep strong runs.
 
     Same contract and result as
-    :func:`lineament.crossings.trace_level_set_reference` (pieces and
-    fragments with the same vertices, strengths and order; see the module
-    docstring for how that is kept).
+    :func:`lineament.crossings.trace_level_set_reference`: the same pieces
+    and fragments, each with the same vertices in the same direction, the
+    same strengths and open flags, though the lists may be in another order
+    (see the module docstring for how that is kept).
 
     Parameters
     ----------
@@ -1137,12 +1452,19 @@ def trace_compiled(field: np.ndarray, strength: np.ndarray, usable: np.ndarray, 
         core = Core(offset[0], offset[1], offset[0] + h, offset[1] + w)
     # NumPy compares a float32 array with a Python float in float32, with a NumPy float64 in float64
     low_in_f64 = np.result_type(np.float32, low) == np.float64
-    pt_r, pt_c, verts, bounds = _level_set(field, _CASE_SEGMENTS)
+    strength = _as_float(strength)
+    mask = np.ascontiguousarray(mask, dtype=np.bool_)
+    low_args = (np.float32(low), float(low), bool(low_in_f64))
+    ok, pt_r, pt_c, s_pt, verts, bounds = _strong_runs(field, strength, mask, *low_args, _CASE_SEGMENTS)
+    if ok:
+        keep_pt = np.zeros(0, np.bool_)  # every point of every run is kept
+    else:  # a passing vertex on a pixel centre: assemble the whole level set
+        pt_r, pt_c, verts, bounds = _contours(field)
+        s_pt, keep_pt = _vertex_strengths(pt_r, pt_c, strength, mask, _all_finite(strength), *low_args)
     if bounds.size < 2:
         return pieces, fragments
     use_sustained = sustained is not None
-    out = _select(pt_r, pt_c, verts, bounds, _as_float(strength), np.ascontiguousarray(mask, dtype=np.bool_),
-                  np.float32(low), float(low), bool(low_in_f64), float(high), use_sustained,
+    out = _select(pt_r, pt_c, verts, bounds, s_pt, keep_pt, float(high), use_sustained,
                   float(sustained) if use_sustained else 0.0, float(sustained_length_px),
                   float(offset[0]), float(offset[1]),
                   float(core.row0), float(core.col0), float(core.row1), float(core.col1))

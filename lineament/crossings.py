@@ -344,9 +344,12 @@ def trace_level_set(field: np.ndarray, strength: np.ndarray, usable: np.ndarray,
 
     Runs compiled code (:func:`lineament._compiled_trace.trace_compiled`):
     marching squares, vertex strengths, hysteresis and ownership in one
-    pass, with only the kept runs returned to Python.  The result is, vertex
-    for vertex, the one :func:`trace_level_set_reference` gives with
-    ``skimage.measure.find_contours`` and a Python loop over contours.
+    pass, with only the kept runs returned to Python, and only vertices
+    strong enough to be kept assembled into runs.  Every piece and fragment
+    is, vertex for vertex, one :func:`trace_level_set_reference` gives with
+    ``skimage.measure.find_contours`` and a Python loop over contours; the
+    lists may come in another order (callers sort pieces and join fragments
+    by their ends).
 
     Parameters
     ----------

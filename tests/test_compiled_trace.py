@@ -3,7 +3,9 @@
 Every check compares with something outside the compiled code:
 ``skimage.measure.find_contours`` (directly, or through
 ``lineament.crossings.trace_level_set_reference``, which traces with it and
-applies the rule in Python), or NumPy's own reductions.
+applies the rule in Python), or NumPy's own reductions.  Traces are compared
+piece by piece and fragment by fragment whatever the order of the lists
+(see ``_by_first_vertex``).
 """
 
 from __future__ import annotations
@@ -30,6 +32,11 @@ from lineament.synthetic import fractal_terrain
 
 
 def _by_first_vertex(items, get):
+    # Order-independent comparison: the reference lists pieces and fragments contour by contour,
+    # the compiled tracer in the order it finds runs (it never assembles whole contours), so both
+    # lists are sorted by first vertex, then length and all vertices, and compared item by item.
+    # Each item must be identical: the same vertices in the same direction, the same strengths
+    # and open flags.
     return sorted(items, key=lambda it: (get(it)[0][0], get(it)[1][0], get(it)[0].size,
                                          tuple(get(it)[0]), tuple(get(it)[1])))
 
@@ -39,7 +46,7 @@ def _assert_same_pieces(ref, out):
     for (rr, rc, rs), (orr, oc, os_) in zip(_by_first_vertex(ref, lambda p: p), _by_first_vertex(out, lambda p: p)):
         assert orr.dtype == np.float64 and oc.dtype == np.float64 and os_.dtype == np.float32
         assert np.array_equal(orr, rr) and np.array_equal(oc, rc)
-        np.testing.assert_allclose(os_, rs, rtol=1e-6, atol=0.0)
+        assert np.array_equal(os_, rs)
 
 
 def _assert_same_fragments(ref, out):
@@ -47,7 +54,7 @@ def _assert_same_fragments(ref, out):
     get = lambda f: (f.rows, f.cols)  # noqa: E731
     for fr, fo in zip(_by_first_vertex(ref, get), _by_first_vertex(out, get)):
         assert np.array_equal(fo.rows, fr.rows) and np.array_equal(fo.cols, fr.cols)
-        np.testing.assert_allclose(fo.strength, fr.strength, rtol=1e-6, atol=0.0)
+        assert np.array_equal(fo.strength, fr.strength)
         assert fo.strength.dtype == np.float32
         assert (fo.start_open, fo.end_open) == (fr.start_open, fr.end_open)
 
@@ -327,3 +334,126 @@ def test_every_vertex_strength_is_bit_exact(dtype, seed):
     for (rr, rc, rs), (orr, oc, os_) in zip(_by_first_vertex(ref[0], get), _by_first_vertex(out[0], get)):
         assert np.array_equal(orr, rr) and np.array_equal(oc, rc)
         assert os_.dtype == rs.dtype == np.float32 and np.array_equal(os_, rs)
+
+
+# ------------------------------------------------------------------------------------------ pruned assembly
+
+
+def _terrain_window(shape, seed, sigma, bump):
+    # Terrain-like surface: cumulative sums of seeded Gaussian noise (a random-walk surface), with an
+    # optional steep Gaussian hill whose LoG response has strong closed zero crossings (rings).
+    rng = np.random.default_rng(seed)
+    z = np.cumsum(np.cumsum(rng.standard_normal(shape), axis=0), axis=1)
+    if bump:
+        r, c = np.mgrid[0:shape[0], 0:shape[1]]
+        r0, c0 = rng.uniform(0.3, 0.7) * shape[0], rng.uniform(0.3, 0.7) * shape[1]
+        z = z + 40.0 * z.std() * np.exp(-((r - r0) ** 2 + (c - c0) ** 2) / (2 * (2.5 * sigma) ** 2))
+    resp = log_response(z.astype(np.float32), sigma, (1.0, 1.0))
+    s, gx, gy = strength_map(resp, sigma, (1.0, 1.0))
+    # robust noise level of the field itself, as the pipeline derives it (1.4826 * median |component|)
+    comps = np.concatenate([gx.ravel(), gy.ravel()]).astype(np.float64)
+    noise = MAD_TO_SIGMA * np.median(np.abs(comps)) * np.sqrt(2 * np.pi) * sigma
+    return rng, resp, s, noise
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(shape=st.tuples(st.integers(12, 64), st.integers(12, 64)), seed=st.integers(0, 2**32 - 1),
+       sigma=st.sampled_from([1.5, 2.0, 3.0]), bump=st.booleans(), tiled=st.booleans(),
+       holes=st.booleans(), nan=st.sampled_from(["none", "field", "strength"]))
+def test_realistic_thresholds_match_reference(shape, seed, sigma, bump, tiled, holes, nan):
+    # Reference: trace_level_set_reference.  Thresholds are multiples of the field's own noise level
+    # (the pipeline's defaults are low 2, sustained 3, high 4 times the noise), so most vertices are
+    # weaker than ``low`` and the compiled tracer links only the passing ones; with rings (a steep
+    # hill), masks with holes, an allowed mask, tiled windows (offset and core) and NaN.
+    rng, resp, s, noise = _terrain_window(shape, seed, sigma, bump)
+    a_low = float(rng.uniform(1.0, 3.0))
+    kw = dict(low=a_low * noise, high=float(rng.uniform(a_low, 5.0)) * noise)
+    if rng.random() < 0.7:
+        kw.update(sustained=float(rng.uniform(a_low, 4.0)) * noise,
+                  sustained_length_px=float(rng.uniform(2.0, 16.0)))
+    usable = np.ones(shape, bool)
+    m = int(rng.integers(0, 4))
+    if m:
+        usable[:m] = usable[-m:] = usable[:, :m] = usable[:, -m:] = False
+    if holes:
+        r0, c0 = int(rng.integers(0, shape[0] - 4)), int(rng.integers(0, shape[1] - 4))
+        usable[r0:r0 + int(rng.integers(2, 8)), c0:c0 + int(rng.integers(2, 8))] = False
+        kw["allowed"] = rng.random(shape) < 0.9
+    if nan == "field":
+        r0, c0 = int(rng.integers(0, shape[0] - 2)), int(rng.integers(0, shape[1] - 2))
+        resp[r0:r0 + 2, c0:c0 + int(rng.integers(1, 4))] = np.nan
+    elif nan == "strength":
+        s[int(rng.integers(0, shape[0])), int(rng.integers(0, shape[1]))] = np.nan
+    if tiled:
+        off = (int(rng.integers(0, 500)), int(rng.integers(0, 500)))
+        core = Core(off[0] + int(rng.integers(0, shape[0] // 2)), off[1] + int(rng.integers(0, shape[1] // 2)),
+                    off[0] + shape[0] - int(rng.integers(0, shape[0] // 2)),
+                    off[1] + shape[1] - int(rng.integers(0, shape[1] // 2)))
+        kw.update(offset=off, core=core)
+    _assert_same_trace(resp, s, usable, **kw)
+
+
+def test_pruned_assembly_links_only_passing_vertices():
+    # With the pipeline's default thresholds on a LoG response of terrain, most vertices are weaker
+    # than ``low``: the pruned assembly gives points to a minority of them (the full level set,
+    # skimage find_contours, has them all), and the trace is still the reference's.
+    resp, s, usable, kw = _log_field(256, seed=5)
+    low = kw["low"]
+    ok, pt_r, pt_c, pt_s, verts, bounds = ct._strong_runs(resp, s, usable, np.float32(low), float(low),
+                                                          False, ct._CASE_SEGMENTS)
+    n_all = sum(c.shape[0] for c in find_contours(resp, 0.0))
+    assert ok and 0 < pt_r.size < 0.5 * n_all
+    assert np.all(pt_s >= np.float32(low))  # every linked vertex passes
+    ref = _assert_same_trace(resp, s, usable, **kw)
+    assert len(ref[0]) > 0
+
+
+def test_ring_cut_by_the_core_gives_the_reference_fragments():
+    # Reference: trace_level_set_reference.  A closed contour that passes everywhere is a ring; cut
+    # by the core it becomes fragments that start at find_contours' start vertex of the ring, and a
+    # weak stretch makes runs that wrap around that start.
+    f = _ring(30, 9.0, (14.2, 15.1))
+    usable = np.ones(f.shape, bool)
+    strong = np.full(f.shape, 5.0, np.float32)
+    ramp = np.linspace(0.5, 6.0, f.size, dtype=np.float32).reshape(f.shape)
+    for s in (strong, ramp, ramp[::-1, ::-1].copy(), ramp.T.copy()):
+        for core in (Core(100, 200, 114, 230), Core(100, 215, 130, 230), Core(108, 200, 130, 221)):
+            ref = _assert_same_trace(f, s, usable, high=4.0, low=1.0, offset=(100, 200), core=core)
+            assert len(ref[1]) > 0
+    ref = _assert_same_trace(f, strong, usable, high=4.0, low=1.0, offset=(100, 200), core=Core(100, 200, 130, 230))
+    assert len(ref[0]) == 1 and ref[0][0][0][0] == ref[0][0][0][-1]  # kept whole, closed
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_weak_vertices_on_pixel_centres_keep_the_pruned_assembly(seed):
+    # Reference: trace_level_set_reference.  Exact zeros of the field put vertices on pixel centres,
+    # where contours may meet.  When those vertices are weaker than ``low`` (strength 0 there) they
+    # take no part in runs and the pruned assembly is used; when one passes, the whole level set is
+    # assembled by the replayed find_contours assembly.  Both must give the reference's result.
+    rng = np.random.default_rng(seed)
+    f = rng.integers(-2, 3, (24, 27)).astype(np.float32)
+    s = np.where(f == 0, 0.0, rng.uniform(1.0, 5.0, f.shape)).astype(np.float32)
+    usable = np.ones(f.shape, bool)
+    ok, *_ = ct._strong_runs(f, s, usable, np.float32(0.5), 0.5, False, ct._CASE_SEGMENTS)
+    assert ok
+    ref = _assert_same_trace(f, s, usable, high=3.0, low=0.5)
+    assert len(ref[0]) > 0
+    s_all = (s + 1.0).astype(np.float32)  # now the vertices on centres pass too
+    ok, *_ = ct._strong_runs(f, s_all, usable, np.float32(0.5), 0.5, False, ct._CASE_SEGMENTS)
+    assert not ok
+    _assert_same_trace(f, s_all, usable, high=3.0, low=0.5)
+
+
+def test_infinite_field_values_match_reference():
+    # Reference: trace_level_set_reference.  Next to an infinite value a vertex lies on a pixel
+    # centre or has NaN coordinates (inf / inf); the latter never pass.
+    rng = np.random.default_rng(8)
+    f = rng.standard_normal((16, 18)).astype(np.float32)
+    f[3, 4] = np.inf
+    f[7, 9] = -np.inf
+    f[12, 2] = np.inf
+    s = (rng.random(f.shape) * 4).astype(np.float32)
+    usable = np.ones(f.shape, bool)
+    with np.errstate(invalid="ignore"):
+        ref = _assert_same_trace(f, s, usable, high=2.0, low=0.5)
+    assert len(ref[0]) > 0
