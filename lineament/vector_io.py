@@ -175,18 +175,21 @@ def write_lines(result, path: str | os.PathLike, *, overwrite: bool = False,
 
 def _records(lines: list[Lineament], src_crs, dst_crs, driver: str, line_crs: list) -> Iterable[dict]:
     _, rename = _schema(driver)
+    # one comparison and transformer per CRS object (every line of a run shares its raster's CRS)
     transformers: dict = {}
     for line, lcrs in zip(lines, line_crs):
-        coords = np.asarray(line.geometry.coords)
-        if dst_crs is not None and lcrs is not None and not CRS(lcrs).equals(dst_crs):
-            key = lcrs.to_wkt()
+        coords = np.asarray(line.geometry.coords, dtype=np.float64)
+        if dst_crs is not None and lcrs is not None:
+            key = id(lcrs)
             if key not in transformers:
-                transformers[key] = Transformer.from_crs(lcrs, dst_crs, always_xy=True)
-            x, y = transformers[key].transform(coords[:, 0], coords[:, 1])
-            coords = np.column_stack((x, y))
+                transformers[key] = (lcrs, None if CRS(lcrs).equals(dst_crs)
+                                     else Transformer.from_crs(lcrs, dst_crs, always_xy=True))
+            transformer = transformers[key][1]
+            if transformer is not None:
+                x, y = transformer.transform(coords[:, 0], coords[:, 1])
+                coords = np.column_stack((x, y))
         props = {rename.get(k, k): v for k, v in line.properties().items()}
-        yield {"geometry": {"type": "LineString", "coordinates": [tuple(map(float, c)) for c in coords]},
-               "properties": props}
+        yield {"geometry": {"type": "LineString", "coordinates": coords.tolist()}, "properties": props}
 
 
 def _atomic_write(out_path: Path, driver: str, schema: dict, crs, records: Iterable[dict],
