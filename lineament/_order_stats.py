@@ -6,7 +6,8 @@ several times, while counting the upper and then the lower 16 bits of each
 value's bit pattern finds the same element in two read-only passes.  For
 non-negative IEEE 754 floats the order of the bit patterns, read as
 unsigned integers, is the order of the values (IEEE 754-2019, section 3.4:
-the encoding is sign, biased exponent, significand), so the result is the
+the encoding is sign, biased exponent, significand); negative values are
+mapped to keys below them by inverting their bits.  The result is the
 element ``numpy.partition`` would return, bit for bit; NaN sorts last, as
 there.
 
@@ -21,16 +22,28 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-__all__ = ["kth_smallest_abs", "median_abs"]
+__all__ = ["kth_smallest", "kth_smallest_abs", "median", "median_abs"]
+
+
+@numba.njit(cache=True, nogil=True, inline="always")
+def _order_key(b, signed):  # pragma: no cover - compiled
+    """Unsigned key with the order of the float32 value of bit pattern ``b`` (or of its magnitude)."""
+    if (b & 0x7FFFFFFF) > 0x7F800000:  # NaN, either sign: last
+        return 0xFFFFFFFF
+    if not signed:
+        return b & 0x7FFFFFFF
+    if b & 0x80000000:  # negative: larger magnitudes first
+        return (~b) & 0xFFFFFFFF
+    return b | 0x80000000
 
 
 @numba.njit(cache=True, nogil=True)
-def _kth_abs_bits(bits, k):  # pragma: no cover - compiled
-    """Bit pattern of the k-th smallest (0-based) ``|value|`` of float32 values given as uint32 bits."""
+def _kth_key(bits, k, signed):  # pragma: no cover - compiled
+    """Order key of the k-th smallest (0-based) value (or magnitude) of float32 values given as uint32 bits."""
     n = bits.size
     hist = np.zeros(65536, np.int64)
     for i in range(n):
-        hist[(bits[i] & 0x7FFFFFFF) >> 16] += 1
+        hist[_order_key(np.int64(bits[i]), signed) >> 16] += 1
     below = 0
     top = 0
     for b in range(65536):
@@ -41,7 +54,7 @@ def _kth_abs_bits(bits, k):  # pragma: no cover - compiled
     rank = k - below
     hist[:] = 0
     for i in range(n):
-        v = bits[i] & 0x7FFFFFFF
+        v = _order_key(np.int64(bits[i]), signed)
         if (v >> 16) == top:
             hist[v & 0xFFFF] += 1
     below = 0
@@ -52,16 +65,32 @@ def _kth_abs_bits(bits, k):  # pragma: no cover - compiled
     return 0  # not reached for 0 <= k < n
 
 
+def _value_of_key(key: int, signed: bool) -> float:
+    if key == 0xFFFFFFFF:
+        return float("nan")
+    if signed:
+        key = key & 0x7FFFFFFF if key & 0x80000000 else (~key) & 0xFFFFFFFF
+    return float(np.array([key], np.uint32).view(np.float32)[0])
+
+
+def _kth(values: np.ndarray, k: int, signed: bool) -> float:
+    a = np.ascontiguousarray(values, dtype=np.float32).ravel()
+    if not 0 <= k < a.size:
+        raise ValueError(f"k must be in 0..{a.size - 1}, got {k}")
+    return _value_of_key(int(_kth_key(a.view(np.uint32), int(k), bool(signed))), signed)
+
+
 def kth_smallest_abs(values: np.ndarray, k: int) -> float:
     """The ``k``-th smallest (0-based) absolute value of float32 ``values``.
 
     The same element as ``np.partition(np.abs(values), k)[k]``.
     """
-    a = np.ascontiguousarray(values, dtype=np.float32).ravel()
-    if not 0 <= k < a.size:
-        raise ValueError(f"k must be in 0..{a.size - 1}, got {k}")
-    bits = _kth_abs_bits(a.view(np.uint32), int(k))
-    return float(np.array([bits], np.uint32).view(np.float32)[0])
+    return _kth(values, k, False)
+
+
+def kth_smallest(values: np.ndarray, k: int) -> float:
+    """The ``k``-th smallest (0-based) of float32 ``values``: the element ``np.partition(values, k)[k]``."""
+    return _kth(values, k, True)
 
 
 def median_abs(values: np.ndarray) -> float:
@@ -79,3 +108,19 @@ def median_abs(values: np.ndarray) -> float:
     if n % 2:
         return kth_smallest_abs(a, k)
     return 0.5 * (kth_smallest_abs(a, k - 1) + kth_smallest_abs(a, k))
+
+
+def median(values: np.ndarray) -> float:
+    """``float(np.median(values))`` for float32 values without NaN (the same number).
+
+    For an even count, the mean of the two middle elements as NumPy takes
+    it (in float32).
+    """
+    a = np.ascontiguousarray(values, dtype=np.float32).ravel()
+    n = a.size
+    if n == 0:
+        return float("nan")
+    k = n // 2
+    if n % 2:
+        return kth_smallest(a, k)
+    return float(np.mean(np.array([kth_smallest(a, k - 1), kth_smallest(a, k)], np.float32)))

@@ -30,7 +30,7 @@ import numpy as np
 from scipy import ndimage
 
 from ._version import __version__
-from ._order_stats import median_abs
+from ._order_stats import median, median_abs
 from .crossings import MAD_TO_SIGMA, ROUNDING_STD_PER_SPAN, Core, Fragment, keep_run, stitch_fragments, trace_level_set
 from .detectors import Detector, detectors_for
 from .errors import InputError, SettingsError
@@ -719,7 +719,8 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
     ov_values, ov_valid = source.overview(OVERVIEW_PIXELS)
     if not ov_valid.any():
         raise InputError(f"{name}: no valid cells (everything is nodata, NaN or infinite)")
-    offset = float(np.median(ov_values[ov_valid]))
+    inside = ov_values[ov_valid]
+    offset = median(inside) if inside.dtype == np.float32 else float(np.median(inside))
     with np.errstate(invalid="ignore", over="ignore"):
         span = float(np.max(np.abs((ov_values[ov_valid] - offset) * settings.z_factor)))
     if not math.isfinite(span) or span > float(np.finfo(np.float32).max) / 16:
