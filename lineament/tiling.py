@@ -72,13 +72,37 @@ def tile_grid(shape: tuple[int, int], tile_size: int, halo: tuple[int, int], *,
     return tiles
 
 
+#: Fractional part of the golden ratio: a Kronecker sequence with this step fills the unit
+#: interval most evenly (Niederreiter 1992, chapter 5; Weyl 1916).
+_GOLDEN_FRACTION = (math.sqrt(5.0) - 1.0) / 2.0
+
+
 def spread_sample(tiles: list[Tile], count: int) -> list[Tile]:
-    """Up to ``count`` tiles spread evenly over the list (deterministic)."""
+    """Up to ``count`` tiles of a grid, spread evenly over it in both directions (deterministic).
+
+    Tile ``i`` of ``count`` is taken from grid row ``floor((i + 0.5) rows / count)`` and column
+    ``floor(frac((i + 0.5) g) cols)``, ``g`` the golden-ratio fraction: rows are visited in order
+    and columns by a Kronecker sequence, so the chosen tiles do not line up in one column (which
+    taking every k-th tile in row-major order does when k divides the row length).  Returned in
+    row-major order; a grid place chosen twice is taken once.
+
+    References
+    ----------
+    Niederreiter, H. (1992). Random Number Generation and Quasi-Monte Carlo Methods. SIAM.
+    doi:10.1137/1.9781611970081
+    """
     if len(tiles) <= count:
         return list(tiles)
-    # the middle of each of ``count`` equal runs of tiles (row-major order)
-    idx = np.unique(np.floor((np.arange(count) + 0.5) * len(tiles) / count).astype(int))
-    return [tiles[i] for i in idx]
+    row_starts = sorted({t.core.row0 for t in tiles})
+    col_starts = sorted({t.core.col0 for t in tiles})
+    at = {(t.core.row0, t.core.col0): t for t in tiles}
+    chosen = set()
+    for i in range(count):
+        r = row_starts[min(len(row_starts) - 1, int((i + 0.5) * len(row_starts) / count))]
+        c = col_starts[min(len(col_starts) - 1, int(math.modf((i + 0.5) * _GOLDEN_FRACTION)[0] * len(col_starts)))]
+        if (r, c) in at:
+            chosen.add((r, c))
+    return [t for t in tiles if (t.core.row0, t.core.col0) in chosen]
 
 
 #: Cells read at once by :func:`strided_overview`.

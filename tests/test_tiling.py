@@ -235,3 +235,17 @@ def test_rasters_far_apart_on_one_grid_are_not_one_mosaic(tmp_path):
     assert [type(s) for s in sources] == [MosaicSource, FileSource]
     assert [i.source for i in sources[0].infos] == ["a.tif", "b.tif"]
     assert sources[1].source == "c.tif"
+
+
+def test_spread_sample_covers_rows_and_columns():
+    # Eight of an 8 x 8 grid: one per row and one per column (the golden-ratio Kronecker sequence
+    # visits every eighth of [0, 1) in its first eight terms; Niederreiter 1992, chapter 5),
+    # where every eighth tile in row-major order would all lie in one column.
+    from lineament.tiling import spread_sample
+
+    tiles = tile_grid((4096, 4096), 512, (100, 100))
+    chosen = spread_sample(tiles, 8)
+    assert len(chosen) == 8
+    assert len({t.core.row0 for t in chosen}) == 8 and len({t.core.col0 for t in chosen}) == 8
+    assert chosen == spread_sample(tiles, 8)  # deterministic
+    assert spread_sample(tiles[:5], 8) == tiles[:5]
