@@ -162,15 +162,20 @@ _pool_lock = threading.Lock()
 _pools: dict[str, tuple[int, ThreadPoolExecutor]] = {}
 
 
+def available_cores() -> int:
+    """Cores this process may use."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # pragma: no cover - not on Linux
+        return max(1, os.cpu_count() or 1)
+
+
 def kernel_threads() -> int:
     """Threads used for one pass: ``LINEAMENT_THREADS`` if set, else the cores this process may use."""
     env = os.environ.get("LINEAMENT_THREADS", "").strip()
     if env.isdigit() and int(env) > 0:
         return int(env)
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except AttributeError:  # pragma: no cover - not on Linux
-        return max(1, os.cpu_count() or 1)
+    return available_cores()
 
 
 def thread_pool(name: str, workers: int) -> ThreadPoolExecutor:

@@ -92,7 +92,8 @@ def _with_option_names(message: str) -> str:
 @click.option("--tile-size", type=int, default=DEFAULT_TILE_SIZE, show_default=True,
               help="Tile size in pixels; memory grows with it, results do not change.")
 @click.option("--workers", type=int, default=None,
-              help="Local processes running tiles in parallel. Default: the available cores.")
+              help="Local processes running tiles in parallel. Default: one per 3 cores (each process "
+                   "already uses several cores).")
 @click.option("--cluster", default=None, metavar="ADDRESS",
               help="Send tiles to a running Dask scheduler (tcp://host:8786) instead of local processes; "
                    "its workers must be able to read the inputs.")
