@@ -272,10 +272,56 @@ def read_window(info: RasterInfo, row0: int, col0: int, row1: int, col1: int) ->
 
     def read():
         with rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB), _open(info.path) as ds:
-            return ds.read(list(info.bands), masked=True,
-                           window=Window(col0, row0, col1 - col0, row1 - row0))
+            window = Window(col0, row0, col1 - col0, row1 - row0)
+            return _read_masked(ds, list(info.bands), window)
 
     return _to_values(_guard(info.path, read), info.bands)
+
+
+def _nodata_mask(values: np.ndarray, nodata: float) -> np.ndarray | None:
+    """Cells equal to ``nodata`` as the band type holds it (None: no cell can be)."""
+    kind = values.dtype.kind
+    if kind == "f":
+        if np.isnan(nodata):
+            return np.isnan(values)
+        return values == values.dtype.type(nodata)
+    info = np.iinfo(values.dtype)
+    if not float(nodata).is_integer() or not info.min <= nodata <= info.max:
+        return None  # a value the band cannot hold marks no cell
+    return values == values.dtype.type(int(nodata))
+
+
+def _read_masked(ds, bands: list[int], window) -> np.ma.MaskedArray:
+    """``ds.read(bands, masked=True, window=window)``, faster where validity is only a nodata value.
+
+    rasterio builds the mask from GDAL's mask band, which for a plain nodata
+    value took 13 times as long as the values themselves on a 64 Mpx float32
+    DEM (0.42 s against 0.03 s; our measurement).  Where every band's mask is
+    its nodata value (or all valid) and the values are not float64, the
+    mask is the cells equal to nodata, the test GDAL's nodata mask applies
+    (GDAL raster data model, "Nodata masks"); float64 data, mask bands, alpha
+    bands and per-dataset masks go through rasterio.  ``tests/test_raster_io.py``
+    compares both on every kind.
+    """
+    from rasterio.enums import MaskFlags
+
+    flags = [ds.mask_flag_enums[b - 1] for b in bands]
+    simple = all(set(f) <= {MaskFlags.nodata, MaskFlags.all_valid} for f in flags)
+    if not simple or any(ds.dtypes[b - 1] == "float64" for b in bands):
+        return ds.read(bands, masked=True, window=window)
+    raw = ds.read(bands, window=window)
+    mask = None
+    for i, b in enumerate(bands):
+        nodata = ds.nodatavals[b - 1]
+        if MaskFlags.nodata not in flags[i] or nodata is None:
+            continue
+        m = _nodata_mask(raw[i], nodata)
+        if m is None:
+            continue
+        if mask is None:
+            mask = np.zeros(raw.shape, bool)
+        mask[i] = m
+    return np.ma.MaskedArray(raw, mask=np.ma.nomask if mask is None else mask)
 
 
 def read_raster(path: str | os.PathLike, settings: ExtractionSettings | None = None) -> RasterData:

@@ -325,3 +325,58 @@ def test_text_file(tmp_path):
 def test_source_is_file_name_only(tmp_path):
     path = write_geotiff(tmp_path / "dem.tif", _step(), utm_georef(16, 16))
     assert read_raster(path).source == "dem.tif"
+
+
+def _write(path, data: np.ndarray, **extra) -> None:
+    count = data.shape[0]
+    profile = dict(driver="GTiff", width=data.shape[2], height=data.shape[1], count=count, dtype=data.dtype.name,
+                   crs="EPSG:32633", transform=Affine(10, 0, 500000, 0, -10, 5200000), **extra)
+    with rasterio.open(path, "w", **profile) as dst:
+        dst.write(data)
+
+
+@pytest.mark.parametrize("dtype,nodata", [("float32", -9999.0), ("float32", float("nan")), ("float32", None),
+                                          ("int16", -32768), ("uint8", 0), ("uint16", 65535), ("int32", 7),
+                                          ("float64", -9999.0), ("int16", 12)])
+def test_fast_nodata_read_equals_rasterio_masked_read(tmp_path, dtype, nodata):
+    # Reference: rasterio's masked read (GDAL's mask band) of the same window, value for value and
+    # mask for mask, for every band type and kind of nodata (GDAL raster data model, nodata masks)
+    from rasterio.windows import Window
+
+    from lineament.raster_io import _read_masked
+
+    rng = np.random.default_rng(4)
+    data = (rng.integers(0, 6, (1, 40, 50)) + (0.25 if dtype.startswith("float") else 0)).astype(dtype)
+    if nodata is not None and np.isfinite(nodata) and nodata != 12:  # 12: a nodata no cell holds
+        data[0, rng.random((40, 50)) < 0.2] = nodata
+    elif nodata is not None and np.isnan(nodata):
+        data[0, rng.random((40, 50)) < 0.2] = np.nan
+    path = tmp_path / "r.tif"
+    _write(path, data, **({} if nodata is None else {"nodata": nodata}))
+    with rasterio.open(path) as ds:
+        win = Window(3, 5, 30, 20)
+        ours = _read_masked(ds, [1], win)
+        ref = ds.read([1], masked=True, window=win)
+    assert np.array_equal(np.ma.getdata(ours), np.ma.getdata(ref), equal_nan=dtype.startswith("float"))
+    assert np.array_equal(np.ma.getmaskarray(ours), np.ma.getmaskarray(ref))
+
+
+def test_fast_read_leaves_alpha_and_mask_bands_to_rasterio(tmp_path):
+    # Reference: rasterio's masked read; an alpha band or an internal mask is not a nodata value
+    from rasterio.windows import Window
+
+    from lineament.raster_io import _read_masked
+
+    rng = np.random.default_rng(5)
+    grey = rng.integers(1, 200, (40, 50)).astype("uint8")
+    alpha = np.where(rng.random((40, 50)) < 0.3, 0, 255).astype("uint8")
+    path = tmp_path / "ga.tif"
+    _write(path, np.stack([grey, alpha]), photometric="MINISBLACK", alpha="UNSPECIFIED")
+    with rasterio.open(path, "r+") as ds:
+        ds.colorinterp = [ColorInterp.gray, ColorInterp.alpha]
+    with rasterio.open(path) as ds:
+        ours = _read_masked(ds, [1], Window(0, 0, 50, 40))
+        ref = ds.read([1], masked=True, window=Window(0, 0, 50, 40))
+    assert np.ma.getmaskarray(ref).any()
+    assert np.array_equal(np.ma.getmaskarray(ours), np.ma.getmaskarray(ref))
+    assert np.array_equal(np.ma.getdata(ours), np.ma.getdata(ref))
