@@ -195,7 +195,7 @@ def main() -> None:
         out = work / f"lines_w{workers}.gpkg"
         count = end_to_end(settings, workers, out)
         e2e[workers] = record(f"end to end GeoTIFF->GeoPackage, {workers} worker(s), {count} lines",
-                              _best(lambda: end_to_end(settings, workers, out), 2))
+                              _best(lambda: end_to_end(settings, workers, out), 3))
     full = ExtractionSettings(scales=settings.scales, features=("edges",), full_resolution=True)
     count = end_to_end(full, 1, work / "lines_full.gpkg")
     record(f"end to end, --full-resolution, 1 worker, {count} lines",
