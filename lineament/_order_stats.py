@@ -93,6 +93,19 @@ def kth_smallest(values: np.ndarray, k: int) -> float:
     return _kth(values, k, True)
 
 
+def _middle(values: np.ndarray, signed: bool) -> tuple[float, float, bool] | None:
+    """The lower and upper middle elements (of the values or their magnitudes), and whether the count is odd."""
+    a = np.ascontiguousarray(values, dtype=np.float32).ravel()
+    n = a.size
+    if n == 0:
+        return None
+    k = n // 2
+    if n % 2:
+        v = _kth(a, k, signed)
+        return v, v, True
+    return _kth(a, k - 1, signed), _kth(a, k, signed), False
+
+
 def median_abs(values: np.ndarray) -> float:
     """Median of ``|values|`` for float32 values (NaN for no values).
 
@@ -100,14 +113,11 @@ def median_abs(values: np.ndarray) -> float:
     float64, of the two middle elements (``np.median`` would round that
     mean to float32).
     """
-    a = np.ascontiguousarray(values, dtype=np.float32).ravel()
-    n = a.size
-    if n == 0:
+    m = _middle(values, False)
+    if m is None:
         return float("nan")
-    k = n // 2
-    if n % 2:
-        return kth_smallest_abs(a, k)
-    return 0.5 * (kth_smallest_abs(a, k - 1) + kth_smallest_abs(a, k))
+    lower, upper, _ = m
+    return 0.5 * (lower + upper)  # exact for an odd count: float32 values doubled in float64
 
 
 def median(values: np.ndarray) -> float:
@@ -116,11 +126,8 @@ def median(values: np.ndarray) -> float:
     For an even count, the mean of the two middle elements as NumPy takes
     it (in float32).
     """
-    a = np.ascontiguousarray(values, dtype=np.float32).ravel()
-    n = a.size
-    if n == 0:
+    m = _middle(values, True)
+    if m is None:
         return float("nan")
-    k = n // 2
-    if n % 2:
-        return kth_smallest(a, k)
-    return float(np.mean(np.array([kth_smallest(a, k - 1), kth_smallest(a, k)], np.float32)))
+    lower, upper, odd = m
+    return lower if odd else float(np.mean(np.array([lower, upper], np.float32)))
