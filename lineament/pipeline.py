@@ -400,8 +400,33 @@ def _profile_sum(plan: RunPlan, filled: np.ndarray, tile: Tile, kind: str, rows:
     return np.append(prof.sum(axis=1), b - a)
 
 
+#: A piece whose path, in metres of the band's pixel size, times this margin is shorter than the
+#: minimum length cannot be written, so it is dropped as soon as it is traced.  Its written length
+#: is geodesic and measured after simplification, which only shortens a path; the margin covers
+#: the pixel size changing within a latitude band (1 %) and map projections whose scale factor is
+#: above 2/3 (UTM: 0.9996 to about 1.001).
+PATH_LENGTH_MARGIN = 1.5
+
+
+def min_length_m(settings: ExtractionSettings, sigma_m: float) -> float:
+    """Shortest line written at a scale, metres (``min_length_m``, else ``min_length_sigmas`` sigmas)."""
+    return settings.min_length_m if settings.min_length_m is not None else settings.min_length_sigmas * sigma_m
+
+
+def _surely_shorter(rows: np.ndarray, cols: np.ndarray, pixel_m: tuple[float, float], length_m: float) -> bool:
+    """True when a traced path cannot measure ``length_m`` once written (see :data:`PATH_LENGTH_MARGIN`)."""
+    if rows.size < 2:
+        return True
+    path = float(np.hypot(np.diff(cols) * pixel_m[0], np.diff(rows) * pixel_m[1]).sum())
+    return path * PATH_LENGTH_MARGIN < length_m
+
+
 def _trace_one(plan: RunPlan, item) -> tuple[list, list]:
-    """Trace one level set of a window: pieces it owns whole, and fragments (full-resolution indices)."""
+    """Trace one level set of a window: pieces it owns whole, and fragments (full-resolution indices).
+
+    Pieces too short to be written are dropped here (:func:`_surely_shorter`);
+    fragments are kept whatever their length, since they join others.
+    """
     si, di, ls, usable, filled, factor, tile = item
     th = plan.thresholds[(si, di)]
     sp = plan.scales[si]
@@ -413,6 +438,8 @@ def _trace_one(plan: RunPlan, item) -> tuple[list, list]:
     if factor != 1:  # back to full-resolution indices (exact: the factor is a power of two)
         p = [(r * factor, c * factor, st) for r, c, st in p]
         f = [Fragment(fr.rows * factor, fr.cols * factor, fr.strength, fr.start_open, fr.end_open) for fr in f]
+    shortest = min_length_m(plan.settings, sp.sigma_m)
+    p = [(r, c, st) for r, c, st in p if not _surely_shorter(r, c, plan.pixel_m, shortest)]
     pieces, fragments = [], []
     for r, c, st in p:
         ring = r.size > 2 and r[0] == r[-1] and c[0] == c[-1]
@@ -887,7 +914,7 @@ def _finish(plans: list[RunPlan], bands: list[tuple[int, int]], band_outputs: li
             ths = [p.thresholds[(si, di)] for p in plans]
             noise, high, low = (float(np.mean([getattr(t, a) for t in ths])) for a in ("noise", "high", "low"))
             pieces = sorted(groups.get((si, di), []), key=lambda p: (float(p[0][0]), float(p[1][0])))
-            min_len = s.min_length_m if s.min_length_m is not None else s.min_length_sigmas * sp.sigma_m
+            min_len = min_length_m(s, sp.sigma_m)
             best = None
             if plan0.search_sigmas:
                 from .scale_selection import peak_scale

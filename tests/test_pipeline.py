@@ -158,3 +158,38 @@ def test_dog_operator_finds_the_same_scarp():
     result = extract_array(z, g, ExtractionSettings(scales="20,40", operator="dog"))
     assert result.lines and {ln.operator for ln in result.lines} == {"dog"}
     assert _vertex_distances([ln.geometry for ln in result.lines], truth).max() < 5.0
+
+
+@pytest.mark.parametrize("crs,transform", [
+    ("EPSG:32633", Affine(10.0, 0.0, 500000.0, 0.0, -10.0, 6600000.0)),             # UTM, 10 m
+    ("EPSG:4326", Affine(1 / 3600, 0.0, 15.0, 0.0, -1 / 3600, 60.2)),               # 1 arc-second at 60 N
+    ("EPSG:3857", Affine(10.0, 0.0, 1_600_000.0, 0.0, -10.0, 8_400_000.0)),         # Web Mercator near 60 N
+])
+def test_pieces_dropped_early_are_shorter_than_written_lines_need(crs, transform):
+    # A piece dropped right after tracing (pipeline._surely_shorter) must be one the writer would
+    # drop too: its written, geodesic length (pyproj.Geod through vectorize.pieces_to_lines) is
+    # below the minimum whenever the early test says so.
+    from lineament.pipeline import _surely_shorter
+    from lineament.vectorize import pieces_to_lines
+
+    g = GeoRef.from_rasterio(transform, CRS.from_user_input(crs), 400, 400)
+    pixel_m = g.pixel_size_m()
+    rng = np.random.default_rng(12)
+    pieces = []
+    for _ in range(300):
+        n = int(rng.integers(2, 40))
+        steps = rng.normal(size=(n - 1, 2)) * rng.uniform(0.2, 1.5)
+        start = rng.uniform(20, 380, 2)
+        path = np.vstack([start, start + np.cumsum(steps, axis=0)])
+        pieces.append((path[:, 0], path[:, 1], np.ones(n, np.float32)))
+    lines = pieces_to_lines(pieces, g, tolerance_m=0.5 * min(pixel_m), min_length_m=0.0,
+                            attributes={"scale_m": 20.0, "scale_px": 2.0, "operator": "log", "kind": "edge",
+                                        "source": "test"})
+    assert len(lines) == len(pieces)  # none is degenerate here, so lines and pieces pair up in order
+    dropped = 0
+    for (r, c, _), line in zip(pieces, lines):
+        for need in (20.0, 60.0, 160.0, 400.0):
+            if _surely_shorter(r, c, pixel_m, need):
+                dropped += 1
+                assert line.length_m < need
+    assert dropped > 100  # the test exercises the early drop
