@@ -318,62 +318,121 @@ def gradient_and_magnitude(response: np.ndarray, stencil: np.ndarray, scale_x: f
 
 
 @numba.njit(cache=True, nogil=True)
-def _rows_pair(image, k_a, k_b, out_a, out_b, row0, row1):  # pragma: no cover - compiled
-    """Two row passes sharing one read of each row (same sums, in the same order, as two passes)."""
-    h, w = image.shape
-    taps = k_a.size
-    r = taps // 2
-    for i in range(row0, row1):
-        line = np.empty(w + taps - 1, np.float32)
-        acc_a = np.zeros(w, np.float32)
-        acc_b = np.zeros(w, np.float32)
-        _fill_line(image, i, r, 0, line)
-        for t in range(taps):
-            ka = k_a[t]
-            kb = k_b[t]
-            for j in range(w):
-                v = line[j + t]
-                acc_a[j] += ka * v
-                acc_b[j] += kb * v
-        for j in range(w):
-            out_a[i, j] = acc_a[j]
-            out_b[i, j] = acc_b[j]
+def _log_rows(image, kr_s, kr_d, kc_s, kc_d, scale_x, scale_y, with_gradient, stencil, gsx, gsy, factor,
+              with_components, out, gx, gy, mag, row0, row1):  # pragma: no cover - compiled
+    """LoG rows ``row0:row1`` (and their gradient and magnitude) over rolling buffers of rows.
 
-
-@numba.njit(cache=True, nogil=True)
-def _columns_laplacian(a, b, k_for_a, k_for_b, scale_b, scale_a, out, row0, row1):  # pragma: no cover
-    """``out = float32(b * k_for_b) * scale_b + float32(a * k_for_a) * scale_a`` down the columns.
-
-    Both kernels symmetric; the folded sums and the float32 roundings are
-    those of two :func:`_along_columns` passes followed by the NumPy float32
-    products and sum, so the result is bit for bit the same.
+    Row passes fill a ring of ``2 r + 1`` rows (``r`` the column kernels'
+    half-width), each source row once; each LoG row is summed down the
+    columns from the ring, and with ``with_gradient`` kept in a ring of five
+    rows from which the 5-point gradient and its magnitude are taken.  Every
+    cell gets the sums, in the order and with the roundings, of
+    :func:`_along_rows`, :func:`_along_columns` and :func:`_gradient_passes`
+    on whole images, while the intermediate images never leave the cache.
     """
-    h, w = a.shape
-    r = k_for_a.size // 2
-    for i in range(row0, row1):
+    h, w = image.shape
+    tr = kr_s.size
+    rr = tr // 2
+    rc = kc_s.size // 2
+    n1 = 2 * rc + 1
+    ring_s = np.empty((n1, w), np.float32)
+    ring_d = np.empty((n1, w), np.float32)
+    ring_l = np.empty((5, w), np.float32)
+    ts = stencil.size
+    rs = ts // 2 if with_gradient else 0
+    l_first = max(0, row0 - rs)
+    l_last = min(h, row1 + rs)  # exclusive
+    next_src = max(0, l_first - rc)
+    for l in range(l_first, l_last):
+        # row passes (both row kernels on one read of the row) for every source row LoG row l reads
+        top = min(h - 1, l + rc)
+        while next_src <= top:
+            line = np.empty(w + tr - 1, np.float32)
+            acc_a = np.zeros(w, np.float32)
+            acc_b = np.zeros(w, np.float32)
+            _fill_line(image, next_src, rr, 0, line)
+            for t in range(tr):
+                ka = kr_s[t]
+                kb = kr_d[t]
+                for j in range(w):
+                    v = line[j + t]
+                    acc_a[j] += ka * v
+                    acc_b[j] += kb * v
+            slot = next_src % n1
+            for j in range(w):
+                ring_s[slot, j] = acc_a[j]
+                ring_d[slot, j] = acc_b[j]
+            next_src += 1
+        # LoG row l: Lyy (second derivative down the smoothed rows) and Lxx (smoothing down the
+        # second-derivative rows), folded symmetric column taps
         acc_a = np.empty(w, np.float32)
         acc_b = np.empty(w, np.float32)
-        ka = k_for_a[r]
-        kb = k_for_b[r]
+        c = l % n1
+        ka = kc_d[rc]
+        kb = kc_s[rc]
         for j in range(w):
-            acc_a[j] = ka * a[i, j]
-            acc_b[j] = kb * b[i, j]
-        for t in range(1, r + 1):
-            ka = k_for_a[r + t]
-            kb = k_for_b[r + t]
-            hi = _source_index(i + t, h, 0)
-            lo = _source_index(i - t, h, 0)
+            acc_a[j] = ka * ring_s[c, j]
+            acc_b[j] = kb * ring_d[c, j]
+        for t in range(1, rc + 1):
+            ka = kc_d[rc + t]
+            kb = kc_s[rc + t]
+            hi = _source_index(l + t, h, 0) % n1
+            lo = _source_index(l - t, h, 0) % n1
             for j in range(w):
-                acc_a[j] += ka * (a[hi, j] + a[lo, j])
-                acc_b[j] += kb * (b[hi, j] + b[lo, j])
+                acc_a[j] += ka * (ring_s[hi, j] + ring_s[lo, j])
+                acc_b[j] += kb * (ring_d[hi, j] + ring_d[lo, j])
+        cl = l % 5
         for j in range(w):
-            out[i, j] = (np.float32(np.float32(acc_b[j]) * scale_b)
-                         + np.float32(np.float32(acc_a[j]) * scale_a))
+            ring_l[cl, j] = np.float32(np.float32(acc_b[j]) * scale_x) + np.float32(np.float32(acc_a[j]) * scale_y)
+        if row0 <= l < row1:
+            for j in range(w):
+                out[l, j] = ring_l[cl, j]
+        if not with_gradient:
+            continue
+        # gradient and magnitude of the rows whose five LoG rows (border rows repeated) are in
+        o = max(l - rs, row0)
+        o_end = min(row1, h) if l == h - 1 else l - rs + 1
+        while o < o_end:
+            line = np.empty(w + ts - 1, np.float32)
+            ax = np.zeros(w, np.float32)
+            ay = np.zeros(w, np.float32)
+            src_row = ring_l[o % 5]
+            for j in range(w):
+                line[j + rs] = src_row[j]
+            for j in range(rs):  # nearest: border cells repeated
+                line[j] = src_row[0]
+                line[w + rs + j] = src_row[w - 1]
+            for t in range(ts):
+                st = stencil[t]
+                s5 = min(max(o + t - rs, 0), h - 1) % 5
+                for j in range(w):
+                    ax[j] += st * line[j + t]
+                    ay[j] += st * ring_l[s5, j]
+            for j in range(w):
+                x = np.float32(np.float32(ax[j]) * gsx)
+                y = np.float32(np.float32(ay[j]) * gsy)
+                if with_components:
+                    gx[o, j] = x
+                    gy[o, j] = y
+                xd = np.float64(x)
+                yd = np.float64(y)
+                mag[o, j] = np.float32(np.float32(np.sqrt(xd * xd + yd * yd)) * factor)
+            o += 1
+
+
+def _log_kernels(row_smooth, row_second, col_smooth, col_second) -> tuple:
+    kr_s, kr_d = (np.ascontiguousarray(k, dtype=np.float32) for k in (row_smooth, row_second))
+    kc_s, kc_d = (np.ascontiguousarray(k, dtype=np.float32) for k in (col_smooth, col_second))
+    if kr_s.size != kr_d.size or kc_s.size != kc_d.size or kr_s.size % 2 == 0 or kc_s.size % 2 == 0:
+        raise ValueError("kernel pairs must have the same odd length")
+    if kernel_symmetry(kc_s) != 1 or kernel_symmetry(kc_d) != 1:
+        raise ValueError("column kernels must be symmetric")
+    return kr_s, kr_d, kc_s, kc_d
 
 
 def laplacian_passes(image: np.ndarray, row_smooth: np.ndarray, row_second: np.ndarray,
                      col_smooth: np.ndarray, col_second: np.ndarray, scale_x: float, scale_y: float) -> np.ndarray:
-    """``scale_x * Lxx + scale_y * Lyy`` from separable kernels, in two sweeps instead of four passes.
+    """``scale_x * Lxx + scale_y * Lyy`` from separable kernels, in one sweep instead of four passes.
 
     ``Lxx`` is ``row_second`` along rows then ``col_smooth`` down columns,
     ``Lyy`` is ``row_smooth`` along rows then ``col_second`` down columns
@@ -381,7 +440,8 @@ def laplacian_passes(image: np.ndarray, row_smooth: np.ndarray, row_second: np.n
     are those of four :func:`correlate1d` passes followed by
     ``lxx * float32(scale_x) + lyy * float32(scale_y)`` in float32, so the
     result is bit for bit the same; each row is read once for both row
-    kernels, each column neighbourhood once for both column kernels.
+    kernels, and the row passes live in a rolling buffer of rows
+    (:func:`_log_rows`), not in whole intermediate images.
 
     Parameters
     ----------
@@ -397,20 +457,48 @@ def laplacian_passes(image: np.ndarray, row_smooth: np.ndarray, row_second: np.n
     -------
     ndarray, shape (rows, cols), float32
     """
-    img = np.ascontiguousarray(image, dtype=np.float32)
-    kr_s, kr_d = (np.ascontiguousarray(k, dtype=np.float32) for k in (row_smooth, row_second))
-    kc_s, kc_d = (np.ascontiguousarray(k, dtype=np.float32) for k in (col_smooth, col_second))
-    if kr_s.size != kr_d.size or kc_s.size != kc_d.size or kr_s.size % 2 == 0 or kc_s.size % 2 == 0:
-        raise ValueError("kernel pairs must have the same odd length")
-    if kernel_symmetry(kc_s) != 1 or kernel_symmetry(kc_d) != 1:
-        raise ValueError("column kernels must be symmetric")
-    out = np.empty(img.shape, np.float32)
-    if img.size == 0:
-        return out
-    smooth = np.empty(img.shape, np.float32)
-    second = np.empty(img.shape, np.float32)
-    h = img.shape[0]
-    _bands(_rows_pair, h, img.size, img, kr_s, kr_d, smooth, second)
-    # Lxx: second derivative along rows, smoothed down columns; Lyy: the other way round
-    _bands(_columns_laplacian, h, img.size, smooth, second, kc_d, kc_s, np.float32(scale_x), np.float32(scale_y), out)
+    out, _, _, _ = _log_sweep(image, row_smooth, row_second, col_smooth, col_second, scale_x, scale_y, None)
     return out
+
+
+def log_and_gradient(image: np.ndarray, row_smooth: np.ndarray, row_second: np.ndarray,
+                     col_smooth: np.ndarray, col_second: np.ndarray, scale_x: float, scale_y: float,
+                     stencil: np.ndarray, gradient_x: float, gradient_y: float, factor: float, *,
+                     components: bool = True) -> tuple:
+    """:func:`laplacian_passes` and :func:`gradient_and_magnitude` of its result, in one sweep.
+
+    The same numbers, bit for bit, as the two calls one after the other;
+    the LoG rows are differenced while they are still in the cache.
+
+    Returns
+    -------
+    response, magnitude : ndarray, float32
+    gx, gy : ndarray, float32, or None when ``components`` is False
+    """
+    return _log_sweep(image, row_smooth, row_second, col_smooth, col_second, scale_x, scale_y,
+                      (stencil, gradient_x, gradient_y, factor, components))
+
+
+def _log_sweep(image, row_smooth, row_second, col_smooth, col_second, scale_x, scale_y, gradient) -> tuple:
+    img = np.ascontiguousarray(image, dtype=np.float32)
+    kr_s, kr_d, kc_s, kc_d = _log_kernels(row_smooth, row_second, col_smooth, col_second)
+    out = np.empty(img.shape, np.float32)
+    with_gradient = gradient is not None
+    if with_gradient:
+        stencil, gradient_x, gradient_y, factor, components = gradient
+        st = np.ascontiguousarray(stencil, dtype=np.float32)
+        mag = np.empty(img.shape, np.float32)
+        shape = img.shape if components else (0, 0)
+    else:
+        st, gradient_x, gradient_y, factor, components = np.zeros(1, np.float32), 0.0, 0.0, 0.0, False
+        mag = np.empty((0, 0), np.float32)
+        shape = (0, 0)
+    gx = np.empty(shape, np.float32)
+    gy = np.empty(shape, np.float32)
+    if img.size > 0:
+        _bands(_log_rows, img.shape[0], img.size, img, kr_s, kr_d, kc_s, kc_d, np.float32(scale_x),
+               np.float32(scale_y), with_gradient, st, np.float32(gradient_x), np.float32(gradient_y),
+               np.float32(factor), bool(components), out, gx, gy, mag)
+    if not with_gradient:
+        return out, None, None, None
+    return (out, mag, gx, gy) if components else (out, mag, None, None)

@@ -27,7 +27,8 @@ from typing import Iterator
 import numpy as np
 from skimage.measure import find_contours
 
-from ._kernels import gradient_and_magnitude
+from ._kernels import gradient_and_magnitude, log_and_gradient
+from .scalespace import log_kernels
 
 #: Consistency factor turning a median absolute deviation into a Gaussian
 #: standard deviation (1 / Phi^-1(3/4); Rousseeuw and Croux 1993).
@@ -96,6 +97,25 @@ def strength_map(response: np.ndarray, sigma_m: float, pixel_size_m: tuple[float
     # per metre, and their magnitude (lineament._kernels; scipy.ndimage is the reference in tests)
     return gradient_and_magnitude(response, _DERIVATIVE_5, 1.0 / pixel_size_m[0], 1.0 / pixel_size_m[1],
                                   step_strength_factor(sigma_m), components=components)
+
+
+def log_strength_map(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float], *,
+                     truncate: float = 4.0, prior_blur_px: float = 0.0, components: bool = True) -> tuple:
+    """The scale-normalised LoG of an image and its :func:`strength_map`, in one compiled sweep.
+
+    The same numbers, bit for bit, as
+    ``strength_map(log_response(image, ...), ...)``
+    (:func:`lineament._kernels.log_and_gradient`), with the LoG rows
+    differenced while they are still in the cache.
+
+    Returns
+    -------
+    response, strength : ndarray, float32
+    gx, gy : ndarray, float32, or None when ``components`` is False
+    """
+    return log_and_gradient(image, *log_kernels(sigma_m, pixel_size_m, truncate=truncate, prior_blur_px=prior_blur_px),
+                            _DERIVATIVE_5, 1.0 / pixel_size_m[0], 1.0 / pixel_size_m[1], step_strength_factor(sigma_m),
+                            components=components)
 
 
 def robust_noise(gx: np.ndarray, gy: np.ndarray, usable: np.ndarray, *, max_samples: int = 4_000_000) -> float:

@@ -20,8 +20,8 @@ from typing import Callable
 import numpy as np
 
 
-from .crossings import (unit_impulse, gradient_impulse_responses, rounding_floor, step_strength_factor,
-                        strength_map)
+from .crossings import (gradient_impulse_responses, log_strength_map, rounding_floor, step_strength_factor,
+                        strength_map, unit_impulse)
 from .errors import SettingsError
 from ._kernels import correlate1d
 from .scalespace import dog_response, gaussian_derivative, gaussian_kernel1d, log_response, residual_sigma
@@ -97,8 +97,12 @@ def _edge_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float
         response_of = functools.partial(dog_response, sigma_m=sigma_m, pixel_size_m=pixel_size_m,
                                         ratio=DOG_RATIO, truncate=truncate, prior_blur_px=prior_blur_px)
         response_scale = 2.0 / (DOG_RATIO - 1.0 / DOG_RATIO)
-    resp = response_of(image)
-    strength, gx, gy = strength_map(resp, sigma_m, pixel_size_m, components=noise)
+    if operator == "log":  # one sweep for the response and its strength (the same numbers)
+        resp, strength, gx, gy = log_strength_map(image, sigma_m, pixel_size_m, truncate=truncate,
+                                                  prior_blur_px=prior_blur_px, components=noise)
+    else:
+        resp = response_of(image)
+        strength, gx, gy = strength_map(resp, sigma_m, pixel_size_m, components=noise)
     factor = step_strength_factor(sigma_m)
     # Floors: input rounding through the filter and the float32 sums (crossings.rounding_floor),
     # and rounding of the response itself (the DoG subtracts two nearly equal blurred images)

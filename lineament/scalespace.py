@@ -139,14 +139,29 @@ def log_response(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, f
     -------
     ndarray, shape (rows, cols), float32
     """
+    # lxx * float32(s2 / dx**2) + lyy * float32(s2 / dy**2), with lxx and lyy from the separable
+    # Gaussian second-derivative kernels, in one compiled sweep (the same numbers as four passes)
+    return laplacian_passes(image, *log_kernels(sigma_m, pixel_size_m, truncate=truncate,
+                                                prior_blur_px=prior_blur_px))
+
+
+def log_kernels(sigma_m: float, pixel_size_m: tuple[float, float], *, truncate: float = 4.0,
+                prior_blur_px: float = 0.0) -> tuple:
+    """The 1-D kernels and scales of :func:`log_response`.
+
+    Returns
+    -------
+    row_smooth, row_second, col_smooth, col_second : ndarray
+        Gaussian and second-derivative kernels along rows (x) and down columns (y).
+    scale_x, scale_y : numpy.float32
+        ``sigma**2 / dx**2`` and ``sigma**2 / dy**2``.
+    """
     dx, dy = pixel_size_m
     srow, scol = residual_sigma(sigma_m / dy, prior_blur_px), residual_sigma(sigma_m / dx, prior_blur_px)
     s2 = np.float32(sigma_m * sigma_m)
-    # lxx * float32(s2 / dx**2) + lyy * float32(s2 / dy**2), with lxx and lyy from the separable
-    # Gaussian second-derivative kernels, in two compiled sweeps (the same numbers as four passes)
-    return laplacian_passes(image, gaussian_kernel1d(scol, 0, truncate), gaussian_kernel1d(scol, 2, truncate),
-                            gaussian_kernel1d(srow, 0, truncate), gaussian_kernel1d(srow, 2, truncate),
-                            np.float32(s2 / (dx * dx)), np.float32(s2 / (dy * dy)))
+    return (gaussian_kernel1d(scol, 0, truncate), gaussian_kernel1d(scol, 2, truncate),
+            gaussian_kernel1d(srow, 0, truncate), gaussian_kernel1d(srow, 2, truncate),
+            np.float32(s2 / (dx * dx)), np.float32(s2 / (dy * dy)))
 
 
 def dog_response(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float],

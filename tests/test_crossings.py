@@ -163,3 +163,19 @@ def test_float32_sum_bound_covers_the_rounding_of_the_log_gradient():
     assert np.abs(gy - ry).max() <= float32_sum_bound(hy) * span
     # the bound is about 1e-5 of the values here, not vacuous
     assert float32_sum_bound(hx) < 1e-4
+
+
+@pytest.mark.parametrize("pixel,blur", [((1.0, 1.0), 0.0), ((10.0, 12.5), 0.0), ((20.0, 20.0), 1.0)])
+def test_log_strength_map_is_strength_of_log_response(pixel, blur):
+    # One sweep must give what the two steps give, bit for bit (each step is checked against
+    # scipy.ndimage in tests/test_kernels.py)
+    from lineament.crossings import log_strength_map
+
+    z = step_image(90, 70, angle_deg=25, offset_px=0.3, blur_px=0.7) * 3.0
+    sigma_m = 3.0 * pixel[0]
+    r = log_response(z, sigma_m, pixel, prior_blur_px=blur)
+    st, gx, gy = strength_map(r, sigma_m, pixel)
+    r2, st2, gx2, gy2 = log_strength_map(z, sigma_m, pixel, prior_blur_px=blur)
+    assert all(np.array_equal(a, b) for a, b in ((r, r2), (st, st2), (gx, gx2), (gy, gy2)))
+    _, st3, no_x, no_y = log_strength_map(z, sigma_m, pixel, prior_blur_px=blur, components=False)
+    assert no_x is None and no_y is None and np.array_equal(st3, st)

@@ -155,3 +155,32 @@ def test_magnitude_alone_is_the_same_magnitude():
     alone, no_x, no_y = gradient_and_magnitude(img, stencil, 0.1, 0.05, 3.0, components=False)
     assert no_x is None and no_y is None and gx.shape == img.shape
     assert np.array_equal(alone, mag)
+
+
+@pytest.mark.parametrize("shape", [(1, 1), (2, 3), (4, 9), (7, 40), (61, 5), (300, 257)])
+@pytest.mark.parametrize("threads", ["1", "3"])
+def test_log_sweep_is_four_passes_then_the_gradient_bit_for_bit(shape, threads, monkeypatch):
+    # The rolling-buffer sweep must give, cell for cell, what four correlate1d passes (each checked
+    # against scipy.ndimage above), the float32 combination and the gradient pass give; kernels
+    # longer than the image reflect as scipy does.  Bands of rows (threads) change no bit.
+    from lineament._kernels import gradient_and_magnitude, laplacian_passes, log_and_gradient
+
+    monkeypatch.setenv("LINEAMENT_THREADS", threads)
+    monkeypatch.setattr(_kernels, "_MIN_PARALLEL_CELLS", 1)
+    rng = np.random.default_rng(shape[0] * 31 + shape[1])
+    img = (rng.normal(size=shape) * 40).astype(np.float32)
+    kx0, kx2 = gaussian_kernel1d(2.0, 0), gaussian_kernel1d(2.0, 2)
+    ky0, ky2 = gaussian_kernel1d(3.0, 0), gaussian_kernel1d(3.0, 2)
+    sx, sy = np.float32(4.0), np.float32(1.5)
+    lxx = correlate1d(correlate1d(img, kx2, 1), ky0, 0)
+    lyy = correlate1d(correlate1d(img, kx0, 1), ky2, 0)
+    ref = lxx * sx + lyy * sy
+    assert np.array_equal(laplacian_passes(img, kx0, kx2, ky0, ky2, 4.0, 1.5), ref)
+    stencil = np.array([1.0, -8.0, 0.0, 8.0, -1.0]) / 12.0
+    mag, gx, gy = gradient_and_magnitude(ref, stencil, 0.1, 0.05, 2.5)
+    out, mag2, gx2, gy2 = log_and_gradient(img, kx0, kx2, ky0, ky2, 4.0, 1.5, stencil, 0.1, 0.05, 2.5)
+    assert np.array_equal(out, ref) and np.array_equal(mag2, mag)
+    assert np.array_equal(gx2, gx) and np.array_equal(gy2, gy)
+    out3, mag3, no_x, no_y = log_and_gradient(img, kx0, kx2, ky0, ky2, 4.0, 1.5, stencil, 0.1, 0.05, 2.5,
+                                              components=False)
+    assert no_x is None and no_y is None and np.array_equal(out3, ref) and np.array_equal(mag3, mag)
