@@ -251,32 +251,50 @@ def correlate1d(image: np.ndarray, kernel: np.ndarray, axis: int, *, mode: str =
     return out
 
 
+@numba.njit(cache=True, inline="always")
+def _gradient_row(rows, ring, h, o, stencil, scale_x, scale_y, factor, with_components, gx, gy, mag):
+    """Gradient and magnitude of row ``o`` of an image of ``h`` rows (border cells repeated).
+
+    ``rows`` holds the image's rows: all of them (``ring`` 0) or a rolling
+    buffer where row ``i`` is at ``i % ring``.
+    """
+    w = rows.shape[1]
+    taps = stencil.size
+    r = taps // 2
+    line = np.empty(w + taps - 1, np.float32)
+    acc_x = np.zeros(w, np.float32)
+    acc_y = np.zeros(w, np.float32)
+    mid = o % ring if ring > 0 else o
+    for j in range(w):
+        line[j + r] = rows[mid, j]
+    for j in range(r):  # nearest: border cells repeated
+        line[j] = rows[mid, 0]
+        line[w + r + j] = rows[mid, w - 1]
+    for t in range(taps):
+        st = stencil[t]
+        src = min(max(o + t - r, 0), h - 1)
+        if ring > 0:
+            src = src % ring
+        for j in range(w):
+            acc_x[j] += st * line[j + t]
+            acc_y[j] += st * rows[src, j]
+    for j in range(w):
+        x = np.float32(np.float32(acc_x[j]) * scale_x)
+        y = np.float32(np.float32(acc_y[j]) * scale_y)
+        if with_components:  # loop-invariant: compiled as two loops
+            gx[o, j] = x
+            gy[o, j] = y
+        xd = np.float64(x)
+        yd = np.float64(y)
+        mag[o, j] = np.float32(np.float32(np.sqrt(xd * xd + yd * yd)) * factor)
+
+
 @numba.njit(cache=True, nogil=True)
 def _gradient_passes(response, stencil, scale_x, scale_y, factor, with_components, gx, gy, mag,
                      row0, row1):  # pragma: no cover
-    h, w = response.shape
-    taps = stencil.size
-    r = taps // 2
+    h = response.shape[0]
     for i in range(row0, row1):
-        line = np.empty(w + taps - 1, np.float32)
-        acc_x = np.zeros(w, np.float32)
-        acc_y = np.zeros(w, np.float32)
-        _fill_line(response, i, r, 1, line)  # border cells repeated (nearest)
-        for t in range(taps):
-            st = stencil[t]
-            src = min(max(i + t - r, 0), h - 1)
-            for j in range(w):
-                acc_x[j] += st * line[j + t]
-                acc_y[j] += st * response[src, j]
-        for j in range(w):
-            x = np.float32(np.float32(acc_x[j]) * scale_x)
-            y = np.float32(np.float32(acc_y[j]) * scale_y)
-            if with_components:  # loop-invariant: compiled as two loops
-                gx[i, j] = x
-                gy[i, j] = y
-            xd = np.float64(x)
-            yd = np.float64(y)
-            mag[i, j] = np.float32(np.float32(np.sqrt(xd * xd + yd * yd)) * factor)
+        _gradient_row(response, 0, h, i, stencil, scale_x, scale_y, factor, with_components, gx, gy, mag)
 
 
 def gradient_and_magnitude(response: np.ndarray, stencil: np.ndarray, scale_x: float, scale_y: float,
@@ -393,30 +411,7 @@ def _log_rows(image, kr_s, kr_d, kc_s, kc_d, scale_x, scale_y, with_gradient, st
         o = max(l - rs, row0)
         o_end = min(row1, h) if l == h - 1 else l - rs + 1
         while o < o_end:
-            line = np.empty(w + ts - 1, np.float32)
-            ax = np.zeros(w, np.float32)
-            ay = np.zeros(w, np.float32)
-            src_row = ring_l[o % 5]
-            for j in range(w):
-                line[j + rs] = src_row[j]
-            for j in range(rs):  # nearest: border cells repeated
-                line[j] = src_row[0]
-                line[w + rs + j] = src_row[w - 1]
-            for t in range(ts):
-                st = stencil[t]
-                s5 = min(max(o + t - rs, 0), h - 1) % 5
-                for j in range(w):
-                    ax[j] += st * line[j + t]
-                    ay[j] += st * ring_l[s5, j]
-            for j in range(w):
-                x = np.float32(np.float32(ax[j]) * gsx)
-                y = np.float32(np.float32(ay[j]) * gsy)
-                if with_components:
-                    gx[o, j] = x
-                    gy[o, j] = y
-                xd = np.float64(x)
-                yd = np.float64(y)
-                mag[o, j] = np.float32(np.float32(np.sqrt(xd * xd + yd * yd)) * factor)
+            _gradient_row(ring_l, 5, h, o, stencil, gsx, gsy, factor, with_components, gx, gy, mag)
             o += 1
 
 
