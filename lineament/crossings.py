@@ -202,26 +202,6 @@ def rounding_floor(impulse_responses, rounding_std: float) -> float:
     return max(rounding_std * white, sums * rounding_std / ROUNDING_STD_PER_SPAN)
 
 
-def noise_gain(response_of, sigma_m: float, pixel_size_m: tuple[float, float], *, truncate: float) -> float:
-    """Standard deviation of one response-gradient component per unit of white input noise.
-
-    Found exactly for the discrete filters in use from their impulse response
-    (the variance of a linear filter's output for white input is the sum of
-    its squared taps).
-
-    Parameters
-    ----------
-    response_of : callable
-        ``response_of(image) -> response``, e.g. a partial of
-        :func:`~lineament.scalespace.log_response`.
-    sigma_m, pixel_size_m, truncate
-        As for the response.
-    """
-    gx, gy = gradient_impulse_responses(response_of, sigma_m, pixel_size_m, truncate=truncate)
-    gx64, gy64 = gx.astype(np.float64), gy.astype(np.float64)
-    return float(math.sqrt(0.5 * (np.sum(gx64 * gx64) + np.sum(gy64 * gy64))))
-
-
 def gradient_impulse_responses(response_of, sigma_m: float, pixel_size_m: tuple[float, float], *,
                                truncate: float) -> tuple[np.ndarray, np.ndarray]:
     """Impulse responses of the two response-gradient components (as :func:`strength_map` takes them)."""
