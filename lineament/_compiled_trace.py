@@ -49,7 +49,7 @@ How the result is kept identical to the reference
   contours: without vertices on pixel centres they are the chains and
   cycles of the successor map of all segments, ordered by their first
   segment (:func:`_contours_chains`), otherwise the replayed assembly.
-* **Strength and rule.**  Vertex strength is Keys cubic convolution with
+* **Strength and rule.**  Vertex strength is Keys' 6-point cubic convolution with
   the tap and summation order of :func:`~lineament.crossings.sample_cubic`,
   clipped at 0 and rounded to float32.  Hysteresis runs, core ownership of
   segment midpoints, :func:`~lineament.crossings.keep_run` (NumPy's
@@ -69,10 +69,10 @@ How the result is kept identical to the reference
   and :func:`~lineament.crossings.stitch_fragments` joins fragments by
   their end vertices.
 
-Strengths are sampled with 4 taps instead of 16: a vertex lies on a pixel
-edge, where the Keys weights across the edge are exactly (0, 1, 0, 0)
+Strengths are sampled with 6 taps instead of 36: a vertex lies on a pixel
+edge, where the weights across the edge are exactly (0, 0, 1, 0, 0, 0)
 (:func:`_sample_on_edge`), read without clamping away from the window's
-sides.  All 16 taps are used where a row the taps may come from has a NaN
+sides.  All 36 taps are used where a row the taps may come from has a NaN
 or an infinity (``0 * inf`` is not 0); rows are checked just ahead of the
 row pass.  The sustained rule computes the path length only for runs whose
 mean strength passes and that are long enough to reach
@@ -669,12 +669,33 @@ def _level_set(field, table):
 
 @numba.njit(inline="always", **_JIT)
 def _keys_weights(t):
-    t2 = t * t
-    t3 = t * t * t
-    return (-0.5 * t3 + t2 - 0.5 * t,
-            1.5 * t3 - 2.5 * t2 + 1.0,
-            -1.5 * t3 + 2.0 * t2 + 0.5 * t,
-            0.5 * t3 - 0.5 * t2)
+    # crossings._keys_weights: the same expressions in the same order
+    if t == 0.0:
+        return (0.0, 0.0, 1.0, 0.0, 0.0, 0.0)
+    s0 = t + 2.0
+    s1 = t + 1.0
+    s4 = 2.0 - t
+    s5 = 3.0 - t
+    u = 1.0 - t
+    return (((1.0 / 12.0 * s0 - 2.0 / 3.0) * s0 + 1.75) * s0 - 1.5,
+            ((-7.0 / 12.0 * s1 + 3.0) * s1 - 59.0 / 12.0) * s1 + 2.5,
+            (4.0 / 3.0 * t - 7.0 / 3.0) * t * t + 1.0,
+            (4.0 / 3.0 * u - 7.0 / 3.0) * u * u + 1.0,
+            ((-7.0 / 12.0 * s4 + 3.0) * s4 - 59.0 / 12.0) * s4 + 2.5,
+            ((1.0 / 12.0 * s5 - 2.0 / 3.0) * s5 + 1.75) * s5 - 1.5)
+
+
+@numba.njit(inline="always", **_JIT)
+def _taps6(w, a0, a1, a2, a3, a4, a5):
+    """Weighted sum of six taps, in the order of crossings.sample_cubic."""
+    out = 0.0
+    out += w[0] * np.float64(a0)
+    out += w[1] * np.float64(a1)
+    out += w[2] * np.float64(a2)
+    out += w[3] * np.float64(a3)
+    out += w[4] * np.float64(a4)
+    out += w[5] * np.float64(a5)
+    return out
 
 
 @numba.njit(**_JIT)
@@ -687,29 +708,27 @@ def _sample_cubic(image, r, c):
     wc = _keys_weights(c - c0)
     ir0 = int(r0)
     ic0 = int(c0)
-    j0 = min(max(ic0 - 1, 0), w - 1)
-    j1 = min(max(ic0, 0), w - 1)
-    j2 = min(max(ic0 + 1, 0), w - 1)
-    j3 = min(max(ic0 + 2, 0), w - 1)
+    j0 = min(max(ic0 - 2, 0), w - 1)
+    j1 = min(max(ic0 - 1, 0), w - 1)
+    j2 = min(max(ic0, 0), w - 1)
+    j3 = min(max(ic0 + 1, 0), w - 1)
+    j4 = min(max(ic0 + 2, 0), w - 1)
+    j5 = min(max(ic0 + 3, 0), w - 1)
     out = 0.0
-    for i in range(4):
-        ri = min(max(ir0 + i - 1, 0), h - 1)
-        acc = 0.0
-        acc += wc[0] * np.float64(image[ri, j0])
-        acc += wc[1] * np.float64(image[ri, j1])
-        acc += wc[2] * np.float64(image[ri, j2])
-        acc += wc[3] * np.float64(image[ri, j3])
+    for i in range(6):
+        ri = min(max(ir0 + i - 2, 0), h - 1)
+        acc = _taps6(wc, image[ri, j0], image[ri, j1], image[ri, j2], image[ri, j3], image[ri, j4], image[ri, j5])
         out += wr[i] * acc
     return out
 
 
 @numba.njit(**_JIT)
 def _sample_on_edge(image, r, c):
-    """:func:`_sample_cubic` at a vertex on a pixel edge, for finite ``image``: 4 taps instead of 16.
+    """:func:`_sample_cubic` at a vertex on a pixel edge, for finite ``image``: 6 taps instead of 36.
 
     One coordinate of a marching-squares vertex is an integer; there the
-    Keys weights are exactly (0, 1, 0, 0), so the 16-tap sum reduces to the
-    4-tap sum along the other axis, bit for bit, except possibly for the
+    weights are exactly (0, 0, 1, 0, 0, 0), so the 36-tap sum reduces to the
+    6-tap sum along the other axis, bit for bit, except possibly for the
     sign of a zero result (recomputed with all taps).
     """
     h, w = image.shape
@@ -719,22 +738,19 @@ def _sample_on_edge(image, r, c):
         c0 = math.floor(c)
         wc = _keys_weights(c - c0)
         ic0 = int(c0)
-        out = 0.0
-        out += wc[0] * np.float64(image[ri, min(max(ic0 - 1, 0), w - 1)])
-        out += wc[1] * np.float64(image[ri, min(max(ic0, 0), w - 1)])
-        out += wc[2] * np.float64(image[ri, min(max(ic0 + 1, 0), w - 1)])
-        out += wc[3] * np.float64(image[ri, min(max(ic0 + 2, 0), w - 1)])
+        row = image[ri]
+        out = _taps6(wc, row[min(max(ic0 - 2, 0), w - 1)], row[min(max(ic0 - 1, 0), w - 1)],
+                     row[min(max(ic0, 0), w - 1)], row[min(max(ic0 + 1, 0), w - 1)],
+                     row[min(max(ic0 + 2, 0), w - 1)], row[min(max(ic0 + 3, 0), w - 1)])
     else:
         ci = min(max(int(math.floor(c)), 0), w - 1)
         if c != math.floor(c):
             return _sample_cubic(image, r, c)
         wr = _keys_weights(r - fr)
         ir0 = int(fr)
-        out = 0.0
-        out += wr[0] * np.float64(image[min(max(ir0 - 1, 0), h - 1), ci])
-        out += wr[1] * np.float64(image[min(max(ir0, 0), h - 1), ci])
-        out += wr[2] * np.float64(image[min(max(ir0 + 1, 0), h - 1), ci])
-        out += wr[3] * np.float64(image[min(max(ir0 + 2, 0), h - 1), ci])
+        out = _taps6(wr, image[min(max(ir0 - 2, 0), h - 1), ci], image[min(max(ir0 - 1, 0), h - 1), ci],
+                     image[min(max(ir0, 0), h - 1), ci], image[min(max(ir0 + 1, 0), h - 1), ci],
+                     image[min(max(ir0 + 2, 0), h - 1), ci], image[min(max(ir0 + 3, 0), h - 1), ci])
     if out == 0.0:
         return _sample_cubic(image, r, c)
     return out
@@ -752,19 +768,16 @@ def _all_finite(a):
 def _strength_on_row(strength, finite, ri, lc):
     """Vertex strength at (``ri``, ``lc``) on pixel row ``ri``: :func:`_sample_cubic`, clipped at 0.
 
-    For finite ``strength`` away from the side columns the 4 taps along the
+    For finite ``strength`` away from the side columns the 6 taps along the
     row are read unclamped (:func:`_sample_on_edge`'s sum); ``lc`` is finite.
     """
     w = strength.shape[1]
     c0 = math.floor(lc)
     ic0 = int(c0)
-    if finite and 1 <= ic0 <= w - 3:
+    if finite and 2 <= ic0 <= w - 4:
         wc = _keys_weights(lc - c0)
-        v = 0.0
-        v += wc[0] * np.float64(strength[ri, ic0 - 1])
-        v += wc[1] * np.float64(strength[ri, ic0])
-        v += wc[2] * np.float64(strength[ri, ic0 + 1])
-        v += wc[3] * np.float64(strength[ri, ic0 + 2])
+        v = _taps6(wc, strength[ri, ic0 - 2], strength[ri, ic0 - 1], strength[ri, ic0],
+                   strength[ri, ic0 + 1], strength[ri, ic0 + 2], strength[ri, ic0 + 3])
         if v == 0.0:
             v = _sample_cubic(strength, ri * 1.0, lc)
     elif finite:
@@ -782,13 +795,10 @@ def _strength_on_column(strength, finite, lr, ci):
     h = strength.shape[0]
     r0 = math.floor(lr)
     ir0 = int(r0)
-    if finite and 1 <= ir0 <= h - 3:
+    if finite and 2 <= ir0 <= h - 4:
         wr = _keys_weights(lr - r0)
-        v = 0.0
-        v += wr[0] * np.float64(strength[ir0 - 1, ci])
-        v += wr[1] * np.float64(strength[ir0, ci])
-        v += wr[2] * np.float64(strength[ir0 + 1, ci])
-        v += wr[3] * np.float64(strength[ir0 + 2, ci])
+        v = _taps6(wr, strength[ir0 - 2, ci], strength[ir0 - 1, ci], strength[ir0, ci],
+                   strength[ir0 + 1, ci], strength[ir0 + 2, ci], strength[ir0 + 3, ci])
         if v == 0.0:
             v = _sample_cubic(strength, lr, ci * 1.0)
     elif finite:
@@ -1166,7 +1176,7 @@ def _strong_runs(field, strength, mask, low32, low64, low_in_f64, table):
     h, w = field.shape
     cap = 1024 + (h * w) // 32
     # rows of the strength map without NaN or infinity, checked just ahead of use: where all the
-    # rows a vertex's 16 taps can come from are finite, its 4 taps on the pixel edge give the sum
+    # rows a vertex's 36 taps can come from are finite, its 6 taps on the pixel edge give the sum
     finite_row = np.empty(h, np.bool_)
     n_checked = 0
     pt_r = np.empty(cap, np.float64)
@@ -1246,17 +1256,17 @@ def _strong_runs(field, strength, mask, low32, low64, low_in_f64, table):
         top0 = bot0
         top1 = bot1
         bot0 = npt
-        while n_checked < min(r1 + 4, h):
+        while n_checked < min(r1 + 5, h):
             fine = True
             for v in strength[n_checked]:
                 fine &= (v - v) == 0.0
             finite_row[n_checked] = fine
             n_checked += 1
-        finite_h = True  # rows r1 - 1 .. r1 + 2 (the taps of a vertex on row r1)
-        for r in range(max(r1 - 1, 0), min(r1 + 3, h)):
+        finite_h = True  # rows r1 - 2 .. r1 + 3 (the taps of a vertex on row r1)
+        for r in range(max(r1 - 2, 0), min(r1 + 4, h)):
             finite_h &= finite_row[r]
-        finite_v = True  # rows r0 - 1 .. r0 + 3 (of a vertex between rows r0 and r1, or on row r1)
-        for r in range(max(r0 - 1, 0), min(r0 + 4, h)):
+        finite_v = True  # rows r0 - 2 .. r0 + 4 (of a vertex between rows r0 and r1, or on row r1)
+        for r in range(max(r0 - 2, 0), min(r0 + 5, h)):
             finite_v &= finite_row[r]
         for i in range(nh):
             c = hpos[i]
@@ -1411,7 +1421,7 @@ def trace_compiled(field: np.ndarray, strength: np.ndarray, usable: np.ndarray, 
         has a true cell).
     strength : ndarray, shape (rows, cols), float32 or float64
         Strength per pixel, in the units of the raster values; sampled at
-        vertices by Keys cubic convolution.
+        vertices by 6-point cubic convolution (Keys 1981).
     usable : ndarray of bool, shape (rows, cols)
         Cells far enough from voids and the raster edge (nearest cell decides).
     high, low : float

@@ -158,7 +158,7 @@ def test_pairwise_sum_is_numpys(dtype):
 
 
 def test_edge_sampling_is_sample_cubic():
-    # Reference: lineament.crossings.sample_cubic (NumPy, 16 taps) at vertices on pixel edges.
+    # Reference: lineament.crossings.sample_cubic (NumPy, 36 taps) at vertices on pixel edges.
     rng = np.random.default_rng(4)
     img = rng.random((9, 10)).astype(np.float32)
     img[2, 3] = 0.0
