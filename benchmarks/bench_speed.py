@@ -48,7 +48,7 @@ from skimage.measure import find_contours
 from lineament import ExtractionSettings, extract_file, write_lines
 from lineament._kernels import kernel_threads
 from lineament.crossings import MAD_TO_SIGMA, strength_map, trace_level_set, trace_level_set_reference
-from lineament.pyramid import LEVEL_BLUR_PX, Pyramid, decimation_factor
+from lineament.pyramid import LEVEL_BLUR_PX, MIN_EDGE_SIGMA_CELLS, Pyramid, decimation_factor
 from lineament.scalespace import gaussian_kernel1d, log_response
 from lineament.synthetic import fractal_terrain, north_up_transform, plant_scarp
 
@@ -143,10 +143,11 @@ def main() -> None:
             strength_map(r, s, (1.0, 1.0))
 
     def ours_filter():
-        # what the pipeline does: scales of 4 px and more on decimated grids (lineament.pyramid)
+        # what the pipeline does for edges: scales of 4 px and more on decimated grids, 2 cells per
+        # sigma (lineament.pyramid)
         pyr = Pyramid(z, np.ones(z.shape, bool))
         for s in sigmas:
-            f = decimation_factor(s)
+            f = decimation_factor(s, min_cells=MIN_EDGE_SIGMA_CELLS)
             level, _ = pyr.level(f)
             r = log_response(level, s, (float(f), float(f)), prior_blur_px=LEVEL_BLUR_PX if f > 1 else 0.0)
             strength_map(r, s, (float(f), float(f)))

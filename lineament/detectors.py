@@ -23,6 +23,7 @@ import numpy as np
 from .crossings import (gradient_impulse_responses, log_strength_map, rounding_floor, step_strength_factor,
                         strength_map, unit_impulse)
 from .errors import SettingsError
+from .pyramid import MIN_DECIMATED_SIGMA_PX, MIN_EDGE_SIGMA_CELLS
 from ._kernels import correlate1d
 from .scalespace import dog_response, gaussian_derivative, gaussian_kernel1d, log_response, residual_sigma
 from .settings import DOG_RATIO
@@ -77,12 +78,17 @@ class Detector:
         -> LevelSet``; ``pixel_size_m`` is the size of the cells of ``image`` (coarse cells on a
         decimated level, which already carries ``prior_blur_px`` cells of Gaussian blur).  With
         ``noise=False`` the level set may leave out its noise samples (only tracing follows).
+    min_cells_per_sigma : float
+        Cells per sigma the detector needs on a decimated grid (see
+        :data:`lineament.pyramid.MIN_DECIMATED_SIGMA_PX`); a run decimates a scale only as far as
+        its most demanding detector allows.
     """
 
     kind: str
     operator: str
     reach_factor: float
     run: Callable[..., LevelSet]
+    min_cells_per_sigma: float = MIN_DECIMATED_SIGMA_PX
 
 
 def _edge_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float], *,
@@ -388,10 +394,11 @@ def _gradient_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[f
 #: Detectors by feature name; ``edges`` uses the operator chosen in the settings.
 DETECTORS: dict[str, dict[str, Detector]] = {
     "edges": {
-        "log": Detector("edge", "log", 1.0, functools.partial(_edge_level_set, operator="log")),
+        "log": Detector("edge", "log", 1.0, functools.partial(_edge_level_set, operator="log"),
+                        MIN_EDGE_SIGMA_CELLS),
         "dog": Detector("edge", "dog", math.sqrt(DOG_RATIO),
-                        functools.partial(_edge_level_set, operator="dog")),
-        "gradient": Detector("edge", "gradient", 1.0, _gradient_level_set),
+                        functools.partial(_edge_level_set, operator="dog"), MIN_EDGE_SIGMA_CELLS),
+        "gradient": Detector("edge", "gradient", 1.0, _gradient_level_set, MIN_EDGE_SIGMA_CELLS),
     },
     "valleys": {
         "hessian": Detector("valley", "hessian", 2.0, functools.partial(_curvature_level_set, sign=1)),

@@ -746,9 +746,12 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
     bands = latitude_bands(georef)
     band_scales = [_scale_plans(georef.window(b0, 0, b1 - b0, georef.width), settings, name, size_of=georef)
                    for b0, b1 in bands]
-    # one decimation factor per scale for the whole raster, from its smallest sigma in pixels
+    # one decimation factor per scale for the whole raster, from its smallest sigma in pixels and
+    # the cells per sigma the most demanding detector of the run needs
+    min_cells = max(d.min_cells_per_sigma for d in detectors)
     factors = [decimation_factor(min(min(sc[si].sigma_rc) for _, sc in band_scales),
-                                 enabled=not settings.full_resolution) for si in range(len(settings.scales))]
+                                 enabled=not settings.full_resolution, min_cells=min_cells)
+               for si in range(len(settings.scales))]
     step = max(factors)
     if step > 1:
         # tiles, halos and latitude bands start on rows and columns of every decimated grid

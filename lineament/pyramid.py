@@ -17,7 +17,8 @@ strength and its thresholds mean what they mean at full resolution.
 Aliasing is small by construction: a blur of ``f`` fine pixels passes
 ``exp(-pi**2 / 2)`` (0.7 %) at the coarse grid's Nyquist frequency, and a
 scale is only decimated to a level where it spans at least
-:data:`MIN_DECIMATED_SIGMA_PX` cells.
+:data:`MIN_DECIMATED_SIGMA_PX` cells (:data:`MIN_EDGE_SIGMA_CELLS` when the run
+finds edges only).
 
 Cell ``(i, j)`` of level ``f`` sits on fine cell ``(f i, f j)`` (global
 indices), so a window whose first row and column are multiples of ``f``
@@ -50,13 +51,17 @@ import numpy as np
 from ._kernels import correlate1d
 from .scalespace import gaussian_kernel1d
 
-#: A scale is filtered on the coarsest level where sigma spans at least this many cells (so its
-#: residual filter, ``sqrt((sigma / f)**2 - 1)``, is at least sqrt(8) = 2.8 cells wide).  With 2
-#: cells (residual 1.7) the response and its noise level matched full resolution to 0.2 %, but the
-#: cubic sampling of the strength between cells read a few per cent low on narrow strength
-#: profiles, so 5 to 15 % less line length passed the thresholds at 40 to 160 m on our sample and
-#: benchmark DEMs; with 3 cells the written length matched within 1 % (our measurement).
+#: A scale is filtered on the coarsest level where sigma spans at least this many cells, unless
+#: the run's detectors ask for fewer (:attr:`lineament.detectors.Detector.min_cells_per_sigma`).
+#: With 3 cells the residual filter, ``sqrt((sigma / f)**2 - 1)``, is at least sqrt(8) = 2.8 cells
+#: wide.  Valley and ridge axes need it: at 2 cells, 83 to 90 % of the length of the
+#: full-resolution axes at 4 and 8 px had a decimated axis within a pixel on our benchmark DEM,
+#: against 97 to 98 % at 4 cells (8 px).  LoG, DoG and gradient edges kept 94 to 99 % at 2 cells,
+#: with their lines 0.06 to 0.17 px (median) from the full-resolution ones, and are decimated
+#: from 2 cells (:data:`MIN_EDGE_SIGMA_CELLS`); our measurements, in benchmarks/README.md.
 MIN_DECIMATED_SIGMA_PX = 3.0
+#: Cells per sigma the edge detectors need on a decimated grid (see :data:`MIN_DECIMATED_SIGMA_PX`).
+MIN_EDGE_SIGMA_CELLS = 2.0
 #: Blur of the first halving, in fine pixels; then each level carries one of its own cells of blur.
 FIRST_HALVING_BLUR_PX = 2.0
 #: Blur of every later halving, in cells of the level being halved.
@@ -65,7 +70,7 @@ NEXT_HALVING_BLUR_PX = math.sqrt(3.0)
 LEVEL_BLUR_PX = 1.0
 
 
-def decimation_factor(sigma_px: float, *, enabled: bool = True) -> int:
+def decimation_factor(sigma_px: float, *, enabled: bool = True, min_cells: float = MIN_DECIMATED_SIGMA_PX) -> int:
     """Coarsest power-of-two grid step on which a scale of ``sigma_px`` fine pixels is filtered.
 
     Parameters
@@ -74,15 +79,20 @@ def decimation_factor(sigma_px: float, *, enabled: bool = True) -> int:
         The scale's smallest sigma in fine pixels (over both axes).
     enabled : bool
         False gives 1 (every scale at full resolution).
+    min_cells : float
+        Cells of the decimated grid that sigma must span (at least 2: the level itself carries
+        one cell of blur).
 
     Returns
     -------
     int
-        ``f = 2**k``, the largest with ``sigma_px / f >= MIN_DECIMATED_SIGMA_PX`` (at least 1).
+        ``f = 2**k``, the largest with ``sigma_px / f >= min_cells`` (at least 1).
     """
-    if not enabled or sigma_px < 2 * MIN_DECIMATED_SIGMA_PX:
+    if min_cells < 2.0:
+        raise ValueError(f"min_cells must be at least 2, got {min_cells}")
+    if not enabled or sigma_px < 2 * min_cells:
         return 1
-    return 2 ** int(math.floor(math.log2(sigma_px / MIN_DECIMATED_SIGMA_PX) + 1e-9))
+    return 2 ** int(math.floor(math.log2(sigma_px / min_cells) + 1e-9))
 
 
 def residual_sigma_px(sigma_px: float, factor: int) -> float:
