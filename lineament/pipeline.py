@@ -375,10 +375,6 @@ def _noise_from(level_sets, core: Core, per_block: int) -> dict:
     return out
 
 
-def _trace_tile(plan: RunPlan, tile: Tile, values, valid) -> TileOutput:
-    return _trace_from(plan, _window_level_sets(plan, tile, values, valid, noise=False))
-
-
 def _profile_sum(plan: RunPlan, filled: np.ndarray, tile: Tile, kind: str, rows: np.ndarray, cols: np.ndarray,
                  skip_first: bool, skip_last: bool) -> np.ndarray | None:
     """Sum over vertices of the scale-normalised strength at each searched sigma, and the count.
@@ -450,10 +446,16 @@ def _trace_one(plan: RunPlan, item) -> tuple[list, list]:
     return pieces, fragments
 
 
-#: Level sets traced at once on background threads while the next one is filtered; each held
-#: level set costs a few arrays of the window, so this bounds the extra memory.  Two measured no
-#: faster than one on 2 cores (the filter passes already use both).
+#: Level sets traced at once on background threads while the next one is filtered.  Two measured
+#: no faster than one on 2 cores (the filter passes already use both).
 TRACE_THREADS = 1
+#: Level sets handed to the tracing threads and not yet traced, at most.  Each holds a few arrays
+#: of its window (the finest scale's the largest), so this bounds the extra memory; the filters
+#: run ahead of the tracer by up to this many level sets, also into the next tile
+#: (:func:`serial_executor`).
+TRACE_QUEUE = 4
+
+
 def _tracer_threads():
     """Background threads for tracing (one pool per process)."""
     from ._kernels import thread_pool
@@ -461,14 +463,19 @@ def _tracer_threads():
     return thread_pool("lineament-trace", TRACE_THREADS)
 
 
-def _trace_from(plan: RunPlan, level_sets, before=None) -> TileOutput:
+def _trace_from(plan: RunPlan, level_sets, before=None, *, deferred: bool = False):
     """Trace every level set of a window, in order.
 
     The compiled tracer releases the interpreter lock, so level sets are
-    traced on background threads (at most :data:`TRACE_THREADS` at once)
-    while the next one is filtered; results are gathered in the order of
-    ``level_sets``, so nothing depends on timing.  ``before(item)``, if
-    given, runs on each item first (in this thread).
+    traced on background threads (at most :data:`TRACE_THREADS` at once,
+    :data:`TRACE_QUEUE` handed over and not yet traced) while the next one
+    is filtered; results are gathered in the order of ``level_sets``, so
+    nothing depends on timing.  ``before(item)``, if given, runs on each
+    item first (in this thread).
+
+    Returns the :class:`TileOutput`, or with ``deferred`` a function that
+    waits for the traces still running and returns it (the caller may filter
+    the next window meanwhile).
     """
     from collections import deque
 
@@ -480,29 +487,50 @@ def _trace_from(plan: RunPlan, level_sets, before=None) -> TileOutput:
         pieces.extend(p)
         fragments.extend(f)
 
+    def drain() -> None:  # after an error: let the traces handed over finish first
+        for fut in pending:
+            fut.exception()
+
     try:
         for item in level_sets:
             if before is not None:
                 before(item)
-            while len(pending) >= TRACE_THREADS:
+            while len(pending) >= TRACE_QUEUE:
                 collect()
             pending.append(_tracer_threads().submit(_trace_one, plan, item))
             del item
-        while pending:
-            collect()
-    finally:
-        for fut in pending:  # an error in this thread: let running traces finish first
-            fut.exception()
-    return TileOutput(pieces, fragments)
+    except BaseException:
+        drain()
+        raise
+
+    def finish() -> TileOutput:
+        try:
+            while pending:
+                collect()
+        finally:
+            drain()
+        return TileOutput(pieces, fragments)
+
+    return finish if deferred else finish()
 
 
 def run_tile_task(task) -> object:
     """Worker entry point: ``(kind, plan, source, tile, data, per_block)`` -> samples or TileOutput."""
+    return start_tile_task(task)()
+
+
+def start_tile_task(task) -> Callable[[], object]:
+    """:func:`run_tile_task` in two steps: do the work of this thread, return a function for the result.
+
+    For a tracing task the level sets are filtered and handed to the tracing
+    threads; the function returned waits for their traces.
+    """
     kind, plan, source, tile, data, per_block = task
     values, valid = data if data is not None else source.read(tile.window)
     if kind == "noise":
-        return _noise_samples(plan, tile, values, valid, per_block)
-    return _trace_tile(plan, tile, values, valid)
+        samples = _noise_samples(plan, tile, values, valid, per_block)
+        return lambda: samples
+    return _trace_from(plan, _window_level_sets(plan, tile, values, valid, noise=False), deferred=True)
 
 
 def _noise_thresholds(settings: ExtractionSettings, samples: list[dict], key: tuple[int, int]) -> Thresholds:
@@ -536,13 +564,37 @@ Executor = Callable[..., list]
 
 
 def serial_executor(tasks: list, on_done: Callable[[int, object], None] | None = None) -> list:
-    """Run tasks one after the other in this process."""
-    out = []
-    for k, t in enumerate(tasks):
-        res = run_tile_task(t)
+    """Run tasks one after the other in this process.
+
+    A tile's filters run while the tracing threads finish the traces of the
+    tile before (:func:`start_tile_task`); results and ``on_done`` calls still
+    come in task order.
+    """
+    out: list = []
+    waiting = None  # (index, finish) of the last task started, whose traces may still be running
+
+    def settle(k: int, finish) -> None:
+        res = finish()
         out.append(res)
         if on_done:
             on_done(k, res)
+
+    try:
+        for k, t in enumerate(tasks):
+            started = (k, start_tile_task(t))
+            previous, waiting = waiting, started
+            if previous is not None:
+                settle(*previous)
+        if waiting is not None:
+            last, waiting = waiting, None
+            settle(*last)
+    except BaseException:
+        if waiting is not None:  # let the traces handed over finish; the error is what counts
+            try:
+                waiting[1]()
+            except BaseException:
+                pass
+        raise
     return out
 
 

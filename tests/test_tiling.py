@@ -249,3 +249,66 @@ def test_spread_sample_covers_rows_and_columns():
     assert len({t.core.row0 for t in chosen}) == 8 and len({t.core.col0 for t in chosen}) == 8
     assert chosen == spread_sample(tiles, 8)  # deterministic
     assert spread_sample(tiles[:5], 8) == tiles[:5]
+
+
+def test_serial_executor_overlaps_tiles_but_reports_in_order(scene, whole):
+    # The serial executor filters a tile while the traces of the one before finish; results and
+    # on_done calls come in task order and equal each task run alone (lineament.pipeline).
+    from lineament.pipeline import run_extraction, run_tile_task
+
+    z, valid, g = scene
+    source = ArraySource(z, valid, g, "array")
+    seen = []
+
+    def recording_executor(tasks, on_done=None):
+        alone = [run_tile_task(t) for t in tasks] if tasks[0][0] == "trace" else None
+
+        def done(k, res):
+            seen.append(k)
+            if alone is not None:
+                assert [p[:2] for p in res.pieces] == [p[:2] for p in alone[k].pieces]
+                for a, b in zip(res.pieces, alone[k].pieces):
+                    assert np.array_equal(a[2], b[2]) and np.array_equal(a[3], b[3])
+                assert len(res.fragments) == len(alone[k].fragments)
+            if on_done:
+                on_done(k, res)
+
+        return serial_executor(tasks, done)
+
+    out = run_extraction(source, ExtractionSettings(scales="20,40"), tile_size=100, executor=recording_executor)
+    n_tiles = out.tiles
+    assert n_tiles > 3 and seen[-n_tiles:] == list(range(n_tiles))
+    _assert_same_lines(whole, out)
+
+
+def test_serial_executor_error_waits_for_traces_handed_over(scene, monkeypatch):
+    # An error while a tile is filtered propagates once the traces of the tile before are done,
+    # so no tracing thread is left working for a run that has ended.
+    import lineament.pipeline as pipeline
+
+    z, valid, g = scene
+    source = ArraySource(z, valid, g, "array")
+    traced, calls = [], []
+    real_trace, real_levels = pipeline._trace_one, pipeline._window_level_sets
+
+    def slow_trace(plan, item):
+        import time
+
+        time.sleep(0.05)
+        res = real_trace(plan, item)
+        traced.append(item[0])
+        return res
+
+    def failing_levels(plan, tile, values, valid, noise=True):
+        if not noise:
+            calls.append(tile.index)
+            if len(calls) == 2:
+                raise RuntimeError("disk gone")
+        return real_levels(plan, tile, values, valid, noise=noise)
+
+    monkeypatch.setattr(pipeline, "_trace_one", slow_trace)
+    monkeypatch.setattr(pipeline, "_window_level_sets", failing_levels)
+    with pytest.raises(RuntimeError, match="disk gone"):
+        pipeline.run_extraction(source, ExtractionSettings(scales="20,40", features="edges"), tile_size=100)
+    assert traced == [0, 1]  # both scales of the first tile were traced before the error surfaced
+    assert pipeline._tracer_threads().submit(lambda: 1).result(timeout=5) == 1
