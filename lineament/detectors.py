@@ -20,7 +20,7 @@ from typing import Callable
 import numpy as np
 
 
-from .crossings import (gradient_impulse_responses, log_strength_map, rounding_floor, step_strength_factor,
+from .crossings import (log_strength_map, rounding_floor, step_strength_factor,
                         strength_map, unit_impulse)
 from .errors import SettingsError
 from .pyramid import MIN_DECIMATED_SIGMA_PX, MIN_EDGE_SIGMA_CELLS
@@ -113,8 +113,9 @@ def _edge_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float
     # Floors: input rounding through the filter and the float32 sums (crossings.rounding_floor),
     # and rounding of the response itself (the DoG subtracts two nearly equal blurred images)
     # through the 5-point derivative, whose white-noise gain is sqrt(130) / 12 per pixel.
-    floor_in = rounding_floor(gradient_impulse_responses(response_of, sigma_m, pixel_size_m, truncate=truncate),
-                              rounding_std)
+    floor_in = _impulse_floor(lambda img: strength_map(response_of(img), sigma_m, pixel_size_m)[1:], sigma_m,
+                              pixel_size_m, truncate=truncate, rounding_std=rounding_std,
+                              key=("edge", operator, float(prior_blur_px)))
     floor_out = rounding_std * response_scale * math.sqrt(130.0) / 12.0 / min(pixel_size_m)
     return LevelSet(resp, strength, None, (gx, gy) if noise else (), factor, max(floor_in, floor_out) * factor)
 
@@ -166,10 +167,26 @@ def derivative_stack(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[floa
     return out
 
 
+#: Rounding floors already computed, by detector, scale, cell size, truncation, prior blur and
+#: rounding level: they depend on nothing else, and a run asks for the same few in every window.
+_FLOORS: dict = {}
+
+
 def _impulse_floor(component_of, sigma_m: float, pixel_size_m: tuple[float, float], *, truncate: float,
-                   rounding_std: float) -> float:
-    """:func:`~lineament.crossings.rounding_floor` of linear filter components, from their impulse responses."""
-    return rounding_floor(component_of(unit_impulse(sigma_m, pixel_size_m, truncate)), rounding_std)
+                   rounding_std: float, key: tuple) -> float:
+    """:func:`~lineament.crossings.rounding_floor` of linear filter components, from their impulse responses.
+
+    ``key`` names the components (detector and prior blur); the value is
+    kept for the next window with the same scalars.
+    """
+    k = (key, float(sigma_m), float(pixel_size_m[0]), float(pixel_size_m[1]), float(truncate), float(rounding_std))
+    floor = _FLOORS.get(k)
+    if floor is None:
+        floor = rounding_floor(component_of(unit_impulse(sigma_m, pixel_size_m, truncate)), rounding_std)
+        if len(_FLOORS) >= 4096:
+            _FLOORS.clear()
+        _FLOORS[k] = floor
+    return floor
 
 
 # --------------------------------------------------------------------------- valleys and ridges
@@ -308,7 +325,8 @@ def _curvature_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[
                               prior_blur_px=prior_blur_px)
         return (np.float32(0.5) * (dd[(0, 2)] - dd[(2, 0)]), dd[(1, 1)])
 
-    floor = _impulse_floor(components, sigma_m, pixel_size_m, truncate=truncate, rounding_std=rounding_std)
+    floor = _impulse_floor(components, sigma_m, pixel_size_m, truncate=truncate, rounding_std=rounding_std,
+                           key=("curvature", float(prior_blur_px)))
     # where the principal curvatures differ by no more than float32 arithmetic can produce (r at
     # the rounding floor: a plane, a flattened lake, the plateaus of a clean step), the principal
     # direction is undefined: no line lies there and the cell is no sample of the background
@@ -372,7 +390,8 @@ def _gradient_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[f
                               prior_blur_px=prior_blur_px)
         return (dd[(0, 1)], dd[(1, 0)])
 
-    floor = _impulse_floor(components, sigma_m, pixel_size_m, truncate=truncate, rounding_std=rounding_std)
+    floor = _impulse_floor(components, sigma_m, pixel_size_m, truncate=truncate, rounding_std=rounding_std,
+                           key=("gradient", float(prior_blur_px)))
     # a gradient no larger than float32 arithmetic can produce (the rounding floor) is flat: its
     # direction is undefined, it carries no line, and it is a background sample (as an exact zero)
     nz = g > np.float32(floor * math.sqrt(2.0))

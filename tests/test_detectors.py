@@ -167,3 +167,33 @@ def test_featureless_terrain_is_quiet_for_every_family(operator):
     per_family = {k: sum(ln.length_m for ln in result.lines if ln.kind == k) / 1000.0 / area_km2
                   for k in ("edge", "valley", "ridge")}
     assert sum(per_family.values()) <= 0.1, per_family
+
+
+def test_rounding_floors_are_remembered_by_everything_they_depend_on():
+    # The floors of a detector depend on its scale, cell size, truncation, prior blur and rounding
+    # level only; once computed they are reused, and a warm cache gives what a cold one gives.
+    import itertools
+
+    from lineament import detectors
+
+    img = np.zeros((48, 48), np.float32)
+    combos = list(itertools.product(("edges", "valleys", "gradient"), (20.0, 30.0), ((10.0, 10.0), (10.0, 12.0)),
+                                    (0.0, 1.0), (1e-4, 3e-4)))
+
+    def floors(order):
+        out = {}
+        for feature, sigma, pixel, blur, rstd in order:
+            det = DETECTORS[feature]["log"] if feature == "edges" else (
+                DETECTORS["edges"]["gradient"] if feature == "gradient" else DETECTORS[feature]["hessian"])
+            ls = det.run(img, sigma, pixel, truncate=4.0, rounding_std=rstd, prior_blur_px=blur)
+            out[(feature, sigma, pixel, blur, rstd)] = ls.noise_floor
+        return out
+
+    detectors._FLOORS.clear()
+    cold = {}
+    for c in combos:  # each computed from an empty cache
+        detectors._FLOORS.clear()
+        cold.update(floors([c]))
+    warm = floors(combos[::-1])
+    assert warm == cold
+    assert len(set(cold.values())) == len(cold)  # every scalar matters
