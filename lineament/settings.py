@@ -154,9 +154,11 @@ class ExtractionSettings:
         Accept a raster without georeferencing and work in pixel units.
     full_resolution : bool
         Filter every scale on the full-resolution grid.  By default a scale
-        of 6 pixels or more is filtered on a decimated grid where it spans 3
-        to 6 cells (:mod:`lineament.pyramid`), which is several times faster
-        and gives the same lines to a small fraction of a pixel.
+        is filtered on a decimated grid where it spans 2 to 4 cells for edges
+        (from 4 pixels), or 3 to 6 cells when valleys or ridges are found in
+        the same run (from 6 pixels; :mod:`lineament.pyramid`), which is
+        several times faster and gives lines within a small fraction of a
+        pixel of the full-resolution ones.
     """
 
     scales: tuple[Scale, ...] = DEFAULT_SCALES

@@ -85,8 +85,8 @@ def _with_option_names(message: str) -> str:
               help="Also find each line's own scale (attribute best_scale_m): where its scale-normalised "
                    "strength peaks, between half the smallest and twice the largest scale. Slower.")
 @click.option("--full-resolution", is_flag=True,
-              help="Filter every scale on the full-resolution grid instead of a decimated one for scales "
-                   "of 6 pixels and more. Slower; the lines move by a small fraction of a pixel.")
+              help="Filter every scale on the full-resolution grid instead of a decimated one (edges from "
+                   "4 pixels, valleys and ridges from 6). Slower; the lines move by a small fraction of a pixel.")
 @click.option("--output-crs", default=None, metavar="CRS",
               help="Write lines in this CRS (e.g. EPSG:4326). Default: the raster's CRS (GeoJSON: always WGS84).")
 @click.option("--tile-size", type=int, default=DEFAULT_TILE_SIZE, show_default=True,
