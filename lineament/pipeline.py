@@ -563,13 +563,29 @@ def _thresholds(settings: ExtractionSettings, noise: float) -> Thresholds:
 Executor = Callable[..., list]
 
 
+#: Noise blocks filtered at once in a serial run (each on its own thread; the filter passes share
+#: the kernel threads).  Blocks are small, so one alone leaves the cores idle between passes; with
+#: two the noise phase of our 4096 x 4096 benchmark took 85 to 130 ms instead of 121 to 157 ms,
+#: and the whole run 0.56 to 0.58 s instead of 0.63 to 0.66 s (best of five, alternating runs).
+NOISE_LANES = 2
+
+
+def _noise_lanes():
+    from ._kernels import thread_pool
+
+    return thread_pool("lineament-noise", NOISE_LANES)
+
+
 def serial_executor(tasks: list, on_done: Callable[[int, object], None] | None = None) -> list:
-    """Run tasks one after the other in this process.
+    """Run tasks in this process.
 
     A tile's filters run while the tracing threads finish the traces of the
-    tile before (:func:`start_tile_task`); results and ``on_done`` calls still
-    come in task order.
+    tile before (:func:`start_tile_task`); noise blocks run
+    :data:`NOISE_LANES` at a time.  Results and ``on_done`` calls come in
+    task order.
     """
+    if tasks and all(t[0] == "noise" for t in tasks):
+        return _noise_executor(tasks, on_done)
     out: list = []
     waiting = None  # (index, finish) of the last task started, whose traces may still be running
 
@@ -594,6 +610,33 @@ def serial_executor(tasks: list, on_done: Callable[[int, object], None] | None =
                 waiting[1]()
             except BaseException:
                 pass
+        raise
+    return out
+
+
+def _noise_executor(tasks: list, on_done) -> list:
+    """Noise-block tasks, :data:`NOISE_LANES` at a time on threads; results in task order."""
+    from collections import deque
+
+    pool = _noise_lanes()
+    out: list = []
+    pending: deque = deque()
+
+    def settle() -> None:
+        out.append(pending.popleft().result())
+        if on_done:
+            on_done(len(out) - 1, out[-1])
+
+    try:
+        for t in tasks:
+            pending.append(pool.submit(run_tile_task, t))
+            if len(pending) > NOISE_LANES:  # one queued, so a lane never waits for this thread
+                settle()
+        while pending:
+            settle()
+    except BaseException:
+        for fut in pending:  # let running blocks finish; the error is what counts
+            fut.cancel() or fut.exception()
         raise
     return out
 

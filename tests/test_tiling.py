@@ -312,3 +312,45 @@ def test_serial_executor_error_waits_for_traces_handed_over(scene, monkeypatch):
         pipeline.run_extraction(source, ExtractionSettings(scales="20,40", features="edges"), tile_size=100)
     assert traced == [0, 1]  # both scales of the first tile were traced before the error surfaced
     assert pipeline._tracer_threads().submit(lambda: 1).result(timeout=5) == 1
+
+
+def test_noise_blocks_run_in_lanes_but_report_in_order(scene, monkeypatch):
+    # Noise blocks run NOISE_LANES at a time on threads; the samples come back in block order and
+    # equal each block run alone, and an error in one block propagates after the running ones end.
+    import lineament.pipeline as pipeline
+
+    z, valid, g = scene
+    source = ArraySource(z, valid, g, "array")
+    monkeypatch.setattr(pipeline, "NOISE_BLOCK", 64)  # several blocks on this small raster
+    seen = {}
+
+    def recording_executor(tasks, on_done=None):
+        if tasks[0][0] == "noise":
+            alone = [pipeline.run_tile_task(t) for t in tasks]
+            order = []
+            got = serial_executor(tasks, lambda k, res: order.append(k))
+            assert order == list(range(len(tasks)))
+            for a, b in zip(alone, got):
+                assert a.keys() == b.keys()
+                for key in a:
+                    assert np.array_equal(a[key][0], b[key][0])
+            seen["blocks"] = len(tasks)
+            return got
+        return serial_executor(tasks, on_done)
+
+    out = pipeline.run_extraction(source, ExtractionSettings(scales="20,40"), tile_size=100,
+                                  executor=recording_executor)
+    assert seen["blocks"] >= 2 and out.lines
+
+    real = pipeline._noise_samples
+    calls = []
+
+    def failing(plan, tile, values, valid, per_block):
+        calls.append(tile.index)
+        if len(calls) == 3:
+            raise RuntimeError("bad block")
+        return real(plan, tile, values, valid, per_block)
+
+    monkeypatch.setattr(pipeline, "_noise_samples", failing)
+    with pytest.raises(RuntimeError, match="bad block"):
+        pipeline.run_extraction(source, ExtractionSettings(scales="20,40"), tile_size=100)
