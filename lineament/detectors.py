@@ -14,6 +14,8 @@ from __future__ import annotations
 
 import functools
 import math
+import threading
+import weakref
 from dataclasses import dataclass
 from typing import Callable
 
@@ -22,6 +24,7 @@ import numpy as np
 
 from .crossings import (log_strength_map, rounding_floor, step_strength_factor,
                         strength_map, unit_impulse)
+from ._curvature import orient_and_field, orientation_flips, principal_directions
 from .errors import SettingsError
 from .pyramid import MIN_DECIMATED_SIGMA_PX, MIN_EDGE_SIGMA_CELLS
 from ._kernels import correlate1d
@@ -190,6 +193,39 @@ def _impulse_floor(component_of, sigma_m: float, pixel_size_m: tuple[float, floa
 
 
 # --------------------------------------------------------------------------- valleys and ridges
+#: The last Hessian stack made by each thread: (weak reference to its window, key, stack).
+_LAST_STACKS: dict = {}
+
+
+def _hessian_stack(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float], truncate: float,
+                   prior_blur_px: float) -> dict:
+    """First and second Gaussian derivatives for the valley and ridge detectors.
+
+    The two detectors run one after the other on the same window and scale,
+    so the second reuses the first's stack: each thread keeps its last one
+    while the window it came from lives (a weak reference drops it with the
+    window); the arrays are never changed in place.
+    """
+    key = (float(sigma_m), float(pixel_size_m[0]), float(pixel_size_m[1]), float(truncate), float(prior_blur_px),
+           image.shape)
+    thread = threading.get_ident()
+    last = _LAST_STACKS.pop(thread, None)  # let the previous stack go before the next is made
+    if last is not None and last[0]() is image and last[1] == key:
+        d = last[2]
+    else:
+        del last
+        d = derivative_stack(image, sigma_m, pixel_size_m, ((0, 1), (1, 0), (0, 2), (2, 0), (1, 1)),
+                             truncate=truncate, prior_blur_px=prior_blur_px)
+
+    def forget(ref) -> None:
+        entry = _LAST_STACKS.get(thread)
+        if entry is not None and entry[0] is ref:
+            _LAST_STACKS.pop(thread, None)
+
+    _LAST_STACKS[thread] = (weakref.ref(image, forget), key, d)
+    return d
+
+
 #: Exponent gamma of the scale normalisation ``sigma**(2 gamma) * L_pp`` used to compare
 #: principal curvature across scales (Lindeberg 1998, section 4: gamma = 3/4 for ridges).  With
 #: it, a Gaussian trough or crest of standard deviation ``w`` has its normalised curvature
@@ -219,19 +255,6 @@ ORIENTATION_REFERENCE = (math.sin(math.radians(37.5)), -math.cos(math.radians(37
 #: 4 px; our measurement on the same terrain); sampled over the sign condition, 1.9 keeps the
 #: thresholds of the default scales within a few per cent of the calibrated ones.
 CURVATURE_NOISE_CALIBRATION = 1.9
-
-
-def _orientation_flips(px: np.ndarray, py: np.ndarray) -> np.ndarray:
-    """Cells whose oriented direction points against that of one of their 8 neighbours."""
-    flip = np.zeros(px.shape, bool)
-    h, w = px.shape
-    for dr, dc in ((0, 1), (1, 0), (1, 1), (1, -1)):
-        a = (slice(0, h - dr), slice(max(0, -dc), w - max(0, dc)))  # cell (i, j)
-        b = (slice(dr, h), slice(max(0, dc), w - max(0, -dc)))  # its neighbour (i + dr, j + dc)
-        bad = px[a] * px[b] + py[a] * py[b] < 0
-        flip[a] |= bad
-        flip[b] |= bad
-    return flip
 
 
 def _curvature_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float], *,
@@ -291,34 +314,8 @@ def _curvature_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[
     Steger, C. (1998). An unbiased detector of curvilinear structures. IEEE
     TPAMI 20(2), 113-125. doi:10.1109/34.659930
     """
-    d = derivative_stack(image, sigma_m, pixel_size_m, ((0, 1), (1, 0), (0, 2), (2, 0), (1, 1)),
-                         truncate=truncate, prior_blur_px=prior_blur_px)
+    d = _hessian_stack(image, sigma_m, pixel_size_m, truncate, prior_blur_px)
     lx, ly, lxx, lyy, lxy = d[(0, 1)], d[(1, 0)], d[(0, 2)], d[(2, 0)], d[(1, 1)]
-    m = np.float32(0.5) * (lxx + lyy)
-    a = np.float32(0.5) * (lxx - lyy)
-    r = np.hypot(a, lxy)
-    lpp = m + np.float32(sign) * r
-    # eigenvector of m + r is at angle atan2(Lxy, a) / 2; of m - r, 90 degrees from it
-    theta = np.float32(0.5) * np.arctan2(lxy, a)
-    if sign < 0:
-        theta += np.float32(0.5 * math.pi)
-    px, py = np.cos(theta), np.sin(theta)
-    # smoothed principal direction (double-angle average weighted by |L_pp| where the sign
-    # condition holds), oriented by the reference direction; p is then oriented along it
-    weight = np.where(np.float32(sign) * m > 0, np.abs(lpp), np.float32(0.0))
-    sigma_rc = (sigma_m / pixel_size_m[1], sigma_m / pixel_size_m[0])
-    c2 = gaussian_derivative(weight * (px * px - py * py), sigma_rc, (0, 0), truncate=truncate)
-    s2 = gaussian_derivative(weight * (np.float32(2.0) * px * py), sigma_rc, (0, 0), truncate=truncate)
-    half = np.float32(0.5) * np.arctan2(s2, c2)
-    nx, ny = np.cos(half), np.sin(half)
-    bx, by = (np.float32(v) for v in ORIENTATION_REFERENCE)
-    turn = np.where(nx * bx + ny * by < 0, np.float32(-1.0), np.float32(1.0))
-    nx *= turn
-    ny *= turn
-    flipped = px * nx + py * ny < 0
-    px[flipped] *= -1
-    py[flipped] *= -1
-    field = (lx * px + ly * py).astype(np.float32)
 
     def components(img):
         dd = derivative_stack(img, sigma_m, pixel_size_m, ((0, 2), (2, 0), (1, 1)), truncate=truncate,
@@ -327,20 +324,30 @@ def _curvature_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[
 
     floor = _impulse_floor(components, sigma_m, pixel_size_m, truncate=truncate, rounding_std=rounding_std,
                            key=("curvature", float(prior_blur_px)))
-    # where the principal curvatures differ by no more than float32 arithmetic can produce (r at
-    # the rounding floor: a plane, a flattened lake, the plateaus of a clean step), the principal
-    # direction is undefined: no line lies there and the cell is no sample of the background
-    condition = (np.float32(sign) * m > 0) & (r > np.float32(floor))
-    allowed = condition & ~_orientation_flips(px, py)
     factor = TROUGH_DEPTH_FACTOR * sigma_m * sigma_m
-    strength = (np.abs(lpp) * np.float32(factor)).astype(np.float32)
+    # Compiled passes (lineament._curvature), the formulas of the docstring cell by cell:
+    # m = (Lxx + Lyy) / 2, a = (Lxx - Lyy) / 2, r = hypot(a, Lxy), L_pp = m + sign r, p at angle
+    # atan2(Lxy, a) / 2 (ridges: + 90 degrees).  Where the principal curvatures differ by no more
+    # than float32 arithmetic can produce (r at the rounding floor: a plane, a flattened lake, the
+    # plateaus of a clean step) the principal direction is undefined: no line lies there and the
+    # cell is no sample of the background (``condition``: sign m > 0 and r above the floor).
+    px, py, wc, ws, strength, condition = principal_directions(lxx, lyy, lxy, sign=sign, factor=factor,
+                                                               floor=floor)
+    # smoothed principal direction (double-angle average weighted by |L_pp| where the sign
+    # condition holds), oriented by the reference direction; p is then oriented along it
+    sigma_rc = (sigma_m / pixel_size_m[1], sigma_m / pixel_size_m[0])
+    c2 = gaussian_derivative(wc, sigma_rc, (0, 0), truncate=truncate)
+    s2 = gaussian_derivative(ws, sigma_rc, (0, 0), truncate=truncate)
+    field = orient_and_field(c2, s2, ORIENTATION_REFERENCE, lx, ly, px, py)
+    allowed = condition & ~orientation_flips(px, py)
+    a = np.float32(0.5) * (lxx - lyy) if noise else None
 
     noise_factor = factor * CURVATURE_NOISE_CALIBRATION
     # Noise is sampled wherever the sign condition holds: the cells dropped at orientation flips
     # are where the principal direction turns, which favours small |(Lxx - Lyy) / 2| and |Lxy|, and
     # their share depends on the grid spacing (one cell wide), so leaving them in keeps the noise
     # level a property of the terrain alone.
-    return LevelSet(field, strength, allowed, (a, lxy), noise_factor, floor * noise_factor,
+    return LevelSet(field, strength, allowed, (a, lxy) if noise else (), noise_factor, floor * noise_factor,
                     noise_mask=condition)
 
 
