@@ -163,24 +163,47 @@ def orient_and_field(c2: np.ndarray, s2: np.ndarray, reference: tuple[float, flo
     return field
 
 
+@numba.njit(inline="always", **_JIT)
+def _against(x, y, px, py, ii, jj):
+    return x * px[ii, jj] + y * py[ii, jj] < 0
+
+
+@numba.njit(**_JIT)
+def _flip_cell(px, py, i, j):
+    """Whether cell (i, j) points against one of its neighbours inside the image (any position)."""
+    h, w = px.shape
+    x = px[i, j]
+    y = py[i, j]
+    bad = False
+    for di in range(-1, 2):
+        ii = i + di
+        if ii < 0 or ii >= h:
+            continue
+        for dj in range(-1, 2):
+            jj = j + dj
+            if (di == 0 and dj == 0) or jj < 0 or jj >= w:
+                continue
+            bad |= _against(x, y, px, py, ii, jj)
+    return bad
+
+
 @numba.njit(**_JIT)
 def _flip_rows(px, py, flip, row0, row1):  # pragma: no cover - compiled
     h, w = px.shape
     for i in range(row0, row1):
-        for j in range(w):
+        if i == 0 or i == h - 1 or w < 3:
+            for j in range(w):
+                flip[i, j] = _flip_cell(px, py, i, j)
+            continue
+        flip[i, 0] = _flip_cell(px, py, i, 0)
+        for j in range(1, w - 1):  # interior: the eight neighbours written out (vectorises)
             x = px[i, j]
             y = py[i, j]
-            bad = False
-            for di in range(-1, 2):
-                ii = i + di
-                if ii < 0 or ii >= h:
-                    continue
-                for dj in range(-1, 2):
-                    jj = j + dj
-                    if (di == 0 and dj == 0) or jj < 0 or jj >= w:
-                        continue
-                    bad |= x * px[ii, jj] + y * py[ii, jj] < 0
-            flip[i, j] = bad
+            flip[i, j] = (_against(x, y, px, py, i - 1, j - 1) | _against(x, y, px, py, i - 1, j)
+                          | _against(x, y, px, py, i - 1, j + 1) | _against(x, y, px, py, i, j - 1)
+                          | _against(x, y, px, py, i, j + 1) | _against(x, y, px, py, i + 1, j - 1)
+                          | _against(x, y, px, py, i + 1, j) | _against(x, y, px, py, i + 1, j + 1))
+        flip[i, w - 1] = _flip_cell(px, py, i, w - 1)
 
 
 def orientation_flips(px: np.ndarray, py: np.ndarray) -> np.ndarray:

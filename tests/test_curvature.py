@@ -111,6 +111,9 @@ def test_orientation_flips_match_the_numpy_neighbour_test():
     px, py = np.cos(t).astype(np.float32), np.sin(t).astype(np.float32)
     assert np.array_equal(orientation_flips(px, py), _numpy_flips(px, py))
     assert orientation_flips(px[:1, :1], py[:1, :1]).tolist() == [[False]]
+    for shape in ((1, 7), (2, 2), (3, 1), (2, 9), (6, 3)):  # borders only, no interior
+        a, b = px[:shape[0], :shape[1]].copy(), py[:shape[0], :shape[1]].copy()
+        assert np.array_equal(orientation_flips(a, b), _numpy_flips(a, b)), shape
 
 
 def test_ridges_reuse_the_valleys_stack_only_for_the_same_window():
