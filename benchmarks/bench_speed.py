@@ -13,7 +13,8 @@ own generator), then measures in this one process:
   ``trace_level_set`` (compiled) and ``trace_level_set_reference`` (find_contours + Python);
 * the naive pipeline (scipy LoG at each scale + find_contours over each whole response);
 * end to end, GeoTIFF in, GeoPackage out, edges only, with 1 and 2 worker processes
-  (best of two, after one untimed run), and with ``--full-resolution``.
+  (best of three, after one untimed run), and with ``--full-resolution``; for reference, also
+  with the DEM default of edges, valleys and ridges.
 
 Compiled code (numba) is compiled or loaded from its cache before anything
 is timed, so the table shows steady-state speed; the one-time load costs
@@ -201,6 +202,11 @@ def main() -> None:
     count = end_to_end(full, 1, work / "lines_full.gpkg")
     record(f"end to end, --full-resolution, 1 worker, {count} lines",
            _best(lambda: end_to_end(full, 1, work / "lines_full.gpkg"), 1))
+    # what a DEM gets without --features: edges, valleys and ridges (not part of the targets)
+    dem = ExtractionSettings(scales=settings.scales)
+    count = end_to_end(dem, 1, work / "lines_dem.gpkg")
+    record(f"end to end, all DEM families, 1 worker, {count} lines",
+           _best(lambda: end_to_end(dem, 1, work / "lines_dem.gpkg"), 2))
 
     print(f"# raster {n} x {n} float32 ({mpx:.2f} Mpx), scales {args.scales} px; "
           f"python {platform.python_version()}, numpy {np.__version__}, scipy {scipy.__version__}, "
