@@ -1363,6 +1363,37 @@ def _strong_runs(field, strength, mask, low32, low64, low_in_f64, table):
     return True, pt_r[:npt], pt_c[:npt], pt_s[:npt], verts, bounds
 
 
+@numba.njit(**_JIT)
+def _window_to_raster(pt_r, pt_c, field, off_r, off_c):
+    """crossings.window_to_raster, compiled: raster indices of the points, each rounded once."""
+    n = pt_r.size
+    out_r = np.empty(n, np.float64)
+    out_c = np.empty(n, np.float64)
+    for p in range(n):
+        r = pt_r[p]
+        c = pt_c[p]
+        fr = math.floor(r)
+        fc = math.floor(c)
+        if r == fr and c != fc:  # on a row: the edge from (r, fc) to (r, fc + 1)
+            ri = int(fr)
+            ci = int(fc)
+            a = np.float64(field[ri, ci])
+            b = np.float64(field[ri, ci + 1])
+            out_r[p] = r + off_r
+            out_c[p] = (fc + off_c) + (0.0 - a) / (b - a)
+        elif c == fc and r != fr:  # on a column
+            ri = int(fr)
+            ci = int(fc)
+            a = np.float64(field[ri, ci])
+            b = np.float64(field[ri + 1, ci])
+            out_r[p] = (fr + off_r) + (0.0 - a) / (b - a)
+            out_c[p] = c + off_c
+        else:  # integral (a pixel centre) or NaN
+            out_r[p] = r + off_r
+            out_c[p] = c + off_c
+    return out_r, out_c
+
+
 # --------------------------------------------------------------------------- Python interface
 
 
@@ -1474,9 +1505,10 @@ def trace_compiled(field: np.ndarray, strength: np.ndarray, usable: np.ndarray, 
     if bounds.size < 2:
         return pieces, fragments
     use_sustained = sustained is not None
+    if offset[0] != 0 or offset[1] != 0:  # raster indices, rounded once (crossings.window_to_raster)
+        pt_r, pt_c = _window_to_raster(pt_r, pt_c, field, float(offset[0]), float(offset[1]))
     out = _select(pt_r, pt_c, verts, bounds, s_pt, keep_pt, float(high), use_sustained,
-                  float(sustained) if use_sustained else 0.0, float(sustained_length_px),
-                  float(offset[0]), float(offset[1]),
+                  float(sustained) if use_sustained else 0.0, float(sustained_length_px), 0.0, 0.0,
                   float(core.row0), float(core.col0), float(core.row1), float(core.col1))
     p_r, p_c, p_s, p_b, f_r, f_c, f_s, f_b, f_so, f_eo = out
     for k in range(p_b.size - 1):

@@ -408,6 +408,51 @@ def trace_level_set_reference(field: np.ndarray, strength: np.ndarray, usable: n
                   sustained_length_px=sustained_length_px, allowed=allowed, offset=offset, core=core)
 
 
+def window_to_raster(rows: np.ndarray, cols: np.ndarray, field: np.ndarray, offset: tuple[int, int]):
+    """Vertex indices of a window's zero crossings in raster indices, rounded once.
+
+    Marching squares puts a vertex on the pixel edge from ``(r, c)`` to
+    ``(r, c + 1)`` at ``c + q``, ``q = (0 - f[r, c]) / (f[r, c + 1] - f[r, c])``
+    (likewise down a column).  Adding the window's offset afterwards would
+    round twice (``c + q``, then ``+ offset``), which now and then differs
+    in the last bit from ``(c + offset) + q``, the value a window at another
+    offset (a whole-raster run, another tile size) computes; so ``q`` is
+    recomputed and added to the offset index.  Integral coordinates (vertices
+    on pixel centres, or ``q`` rounded to 0 or 1) are shifted exactly.
+
+    Parameters
+    ----------
+    rows, cols : ndarray, float64
+        Vertex indices in the window, as the tracer found them.
+    field : ndarray, shape (rows, cols)
+        The field whose zero level set was traced.
+    offset : (int, int)
+        Raster indices of the window's first cell.
+    """
+    rows = np.asarray(rows, dtype=np.float64)
+    cols = np.asarray(cols, dtype=np.float64)
+    out_r = rows + offset[0]
+    out_c = cols + offset[1]
+    if offset == (0, 0) or rows.size == 0:
+        return out_r, out_c
+    with np.errstate(invalid="ignore"):
+        on_row = (rows == np.floor(rows)) & (cols != np.floor(cols))
+        on_col = (cols == np.floor(cols)) & (rows != np.floor(rows))
+    if on_row.any():
+        r = rows[on_row].astype(np.intp)
+        c = np.floor(cols[on_row]).astype(np.intp)
+        a = field[r, c].astype(np.float64)
+        b = field[r, c + 1].astype(np.float64)
+        out_c[on_row] = (c + offset[1]).astype(np.float64) + (0.0 - a) / (b - a)
+    if on_col.any():
+        c = cols[on_col].astype(np.intp)
+        r = np.floor(rows[on_col]).astype(np.intp)
+        a = field[r, c].astype(np.float64)
+        b = field[r + 1, c].astype(np.float64)
+        out_r[on_col] = (r + offset[0]).astype(np.float64) + (0.0 - a) / (b - a)
+    return out_r, out_c
+
+
 def _trace(field, strength, usable, *, high, low, sustained, sustained_length_px, allowed, offset, core):
     pieces: list = []
     fragments: list[Fragment] = []
@@ -437,8 +482,7 @@ def _trace(field, strength, usable, *, high, low, sustained, sustained_length_px
         contour, closed = contours[k], closed_all[k]
         lr, lc = contour[:, 0], contour[:, 1]
         s, keep = s_all[a0:b0], keep_all[a0:b0]
-        rows = lr + offset[0]
-        cols = lc + offset[1]
+        rows, cols = window_to_raster(lr, lc, field, tuple(offset))
         n = rows.size
         nxt = (np.arange(n) + 1) % n
         owned = core.owns(0.5 * (rows + rows[nxt]), 0.5 * (cols + cols[nxt]))  # segment i -> i+1

@@ -203,3 +203,29 @@ def test_log_strength_map_is_strength_of_log_response(pixel, blur):
     assert all(np.array_equal(a, b) for a, b in ((r, r2), (st, st2), (gx, gx2), (gy, gy2)))
     _, st3, no_x, no_y = log_strength_map(z, sigma_m, pixel, prior_blur_px=blur, components=False)
     assert no_x is None and no_y is None and np.array_equal(st3, st)
+
+
+def test_window_offsets_do_not_round_vertices_twice():
+    # A vertex at c + q in a window is at (c + offset) + q in the raster.  Computing c + q first and
+    # adding the offset after rounds twice, which differs in the last bit for these values (found by
+    # search); the raster index must not depend on where the window starts (tile-independence).
+    from lineament._compiled_trace import trace_compiled
+    from lineament.crossings import trace_level_set_reference, window_to_raster
+
+    a, b, k, off = np.float32(0.4105063), np.float32(-0.20652792), 28, 273
+    q = (0.0 - float(a)) / (float(b) - float(a))
+    assert (k + q) + off != (k + off) + q  # the case this test is about
+    h, w = 12, 320
+    field = np.where(np.arange(w) <= off + k, a, b)[None, :].repeat(h, axis=0).astype(np.float32)
+    strength = np.ones((h, w), np.float32)
+    usable = np.ones((h, w), bool)
+    kw = dict(high=0.5, low=0.1)
+    for tracer in (trace_level_set_reference, trace_compiled):
+        whole = tracer(field, strength, usable, **kw)[0]
+        part = tracer(field[:, off:], strength[:, off:], usable[:, off:], offset=(0, off), **kw)[0]
+        assert len(whole) == len(part) == 1
+        assert np.array_equal(whole[0][1], part[0][1]) and np.array_equal(whole[0][0], part[0][0])
+        assert np.all(whole[0][1] == (k + off) + q)
+    # a vertex on a pixel centre (both indices integral) is shifted exactly
+    rr, cc = window_to_raster(np.array([3.0, 4.0]), np.array([k + q, 9.0]), field[:, off:], (10, off))
+    assert cc[0] == (k + off) + q and rr.tolist() == [13.0, 14.0] and cc[1] == 9.0 + off
