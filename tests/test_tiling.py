@@ -260,7 +260,7 @@ def test_serial_executor_overlaps_tiles_but_reports_in_order(scene, whole):
     source = ArraySource(z, valid, g, "array")
     seen = []
 
-    def recording_executor(tasks, on_done=None):
+    def checking_executor(tasks, on_done=None):
         alone = [run_tile_task(t) for t in tasks] if tasks[0][0] == "trace" else None
 
         def done(k, res):
@@ -275,7 +275,7 @@ def test_serial_executor_overlaps_tiles_but_reports_in_order(scene, whole):
 
         return serial_executor(tasks, done)
 
-    out = run_extraction(source, ExtractionSettings(scales="20,40"), tile_size=100, executor=recording_executor)
+    out = run_extraction(source, ExtractionSettings(scales="20,40"), tile_size=100, executor=checking_executor)
     n_tiles = out.tiles
     assert n_tiles > 3 and seen[-n_tiles:] == list(range(n_tiles))
     _assert_same_lines(whole, out)
@@ -324,7 +324,7 @@ def test_noise_blocks_run_in_lanes_but_report_in_order(scene, monkeypatch):
     monkeypatch.setattr(pipeline, "NOISE_BLOCK", 64)  # several blocks on this small raster
     seen = {}
 
-    def recording_executor(tasks, on_done=None):
+    def checking_executor(tasks, on_done=None):
         if tasks[0][0] == "noise":
             alone = [pipeline.run_tile_task(t) for t in tasks]
             order = []
@@ -339,7 +339,7 @@ def test_noise_blocks_run_in_lanes_but_report_in_order(scene, monkeypatch):
         return serial_executor(tasks, on_done)
 
     out = pipeline.run_extraction(source, ExtractionSettings(scales="20,40"), tile_size=100,
-                                  executor=recording_executor)
+                                  executor=checking_executor)
     assert seen["blocks"] >= 2 and out.lines
 
     real = pipeline._noise_samples
