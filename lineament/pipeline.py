@@ -449,10 +449,10 @@ def _trace_one(plan: RunPlan, item) -> tuple[list, list]:
 #: Level sets traced at once on background threads while the next one is filtered.  Two measured
 #: no faster than one on 2 cores (the filter passes already use both).
 TRACE_THREADS = 1
-#: Level sets handed to the tracing threads and not yet traced, at most.  Each holds a few arrays
-#: of its window (the finest scale's the largest), so this bounds the extra memory; the filters
-#: run ahead of the tracer by up to this many level sets, also into the next tile
-#: (:func:`serial_executor`).
+#: Level sets of one window handed to the tracing threads and not yet collected, at most.  Each
+#: holds a few arrays of its window (the finest scale's the largest), so this bounds the extra
+#: memory; since the serial executor filters the next window while the last traces of one finish
+#: (:func:`serial_executor`), up to twice this many can be held.
 TRACE_QUEUE = 4
 
 
