@@ -28,7 +28,7 @@ from ._curvature import orient_and_field, orientation_flips, principal_direction
 from .errors import SettingsError
 from .pyramid import MIN_DECIMATED_SIGMA_PX, MIN_EDGE_SIGMA_CELLS
 from ._kernels import correlate1d, smooth_pair
-from .scalespace import dog_response, gaussian_derivative, gaussian_kernel1d, log_response, residual_sigma
+from .scalespace import dog_response, gaussian_kernel1d, log_response, residual_sigma
 from .settings import DOG_RATIO
 
 
