@@ -491,6 +491,99 @@ def smooth_pair(a: np.ndarray, b: np.ndarray, row_kernel: np.ndarray, col_kernel
     return out_a, out_b
 
 
+@numba.njit(cache=True, nogil=True)
+def _derivative_rows(image, kx, ky, sym_y, pair_x, pair_y, scales, out, row0, row1):  # pragma: no cover
+    """Rows ``row0:row1`` of separable derivatives of one image, over rolling buffers of row passes.
+
+    Row ``x`` kernels ``kx[k]`` fill one ring of ``2 r + 1`` rows each; output ``p`` is column
+    kernel ``ky[pair_y[p]]`` over ring ``pair_x[p]``, times ``scales[p]``: the sums, in order and
+    rounding, of :func:`_along_rows` then :func:`_along_columns` (folded taps where ``sym_y`` is
+    1 or -1), borders reflected.
+    """
+    h, w = image.shape
+    nx = kx.shape[0]
+    tr = kx.shape[1]
+    rr = tr // 2
+    tc = ky.shape[1]
+    rc = tc // 2
+    n1 = 2 * rc + 1
+    rings = np.empty((nx, n1, w), np.float32)
+    next_src = max(0, row0 - rc)
+    acc = np.empty(w, np.float32)
+    for l in range(row0, row1):
+        top = min(h - 1, l + rc)
+        while next_src <= top:
+            line = np.empty(w + tr - 1, np.float32)
+            _fill_line(image, next_src, rr, 0, line)
+            slot = next_src % n1
+            for k in range(nx):
+                row = np.zeros(w, np.float32)
+                for t in range(tr):
+                    kt = kx[k, t]
+                    for j in range(w):
+                        row[j] += kt * line[j + t]
+                for j in range(w):
+                    rings[k, slot, j] = row[j]
+            next_src += 1
+        for p in range(pair_x.size):
+            ring = rings[pair_x[p]]
+            kern = ky[pair_y[p]]
+            sym = sym_y[pair_y[p]]
+            if sym == 0:
+                for j in range(w):
+                    acc[j] = 0.0
+                for t in range(tc):
+                    kt = kern[t]
+                    src = _source_index(l + t - rc, h, 0) % n1
+                    for j in range(w):
+                        acc[j] += kt * ring[src, j]
+            else:
+                c = l % n1
+                kt = kern[rc]
+                for j in range(w):
+                    acc[j] = kt * ring[c, j]
+                for t in range(1, rc + 1):
+                    kt = kern[rc + t]
+                    hi = _source_index(l + t, h, 0) % n1
+                    lo = _source_index(l - t, h, 0) % n1
+                    if sym > 0:
+                        for j in range(w):
+                            acc[j] += kt * (ring[hi, j] + ring[lo, j])
+                    else:
+                        for j in range(w):
+                            acc[j] += kt * (ring[hi, j] - ring[lo, j])
+            sc = scales[p]
+            for j in range(w):
+                out[p, l, j] = acc[j] * sc
+
+
+def derivative_sweep(image: np.ndarray, x_kernels: list, y_kernels: list, pairs: list, scales: list) -> np.ndarray:
+    """Several separable derivatives of one image in one sweep.
+
+    Output ``p`` is ``correlate1d(correlate1d(image, x_kernels[i], 1), y_kernels[k], 0) * scales[p]``
+    for ``(i, k) = pairs[p]``, bit for bit (``mode="reflect"``, float32); the row passes are kept
+    in rolling buffers instead of whole images.  All x kernels must have one length, all y
+    kernels another.
+
+    Returns
+    -------
+    ndarray, shape (len(pairs), rows, cols), float32
+    """
+    img = np.ascontiguousarray(image, dtype=np.float32)
+    kx = np.ascontiguousarray(np.stack([np.asarray(k, np.float32) for k in x_kernels]))
+    ky = np.ascontiguousarray(np.stack([np.asarray(k, np.float32) for k in y_kernels]))
+    if kx.shape[1] % 2 == 0 or ky.shape[1] % 2 == 0 or img.ndim != 2:
+        raise ValueError("kernels must have an odd number of taps, the image two dimensions")
+    sym_y = np.array([kernel_symmetry(k) for k in ky], np.int64)
+    pair_x = np.array([p[0] for p in pairs], np.int64)
+    pair_y = np.array([p[1] for p in pairs], np.int64)
+    sc = np.array([np.float32(v) for v in scales], np.float32)
+    out = np.empty((len(pairs),) + img.shape, np.float32)
+    if img.size:
+        _bands(_derivative_rows, img.shape[0], img.size, img, kx, ky, sym_y, pair_x, pair_y, sc, out)
+    return out
+
+
 def _log_kernels(row_smooth, row_second, col_smooth, col_second) -> tuple:
     kr_s, kr_d = (np.ascontiguousarray(k, dtype=np.float32) for k in (row_smooth, row_second))
     kc_s, kc_d = (np.ascontiguousarray(k, dtype=np.float32) for k in (col_smooth, col_second))

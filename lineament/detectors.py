@@ -27,7 +27,7 @@ from .crossings import (log_strength_map, rounding_floor, step_strength_factor,
 from ._curvature import orient_and_field, orientation_flips, principal_directions
 from .errors import SettingsError
 from .pyramid import MIN_DECIMATED_SIGMA_PX, MIN_EDGE_SIGMA_CELLS
-from ._kernels import correlate1d, smooth_pair
+from ._kernels import correlate1d, derivative_sweep, smooth_pair
 from .scalespace import dog_response, gaussian_kernel1d, log_response, residual_sigma
 from .settings import DOG_RATIO
 
@@ -157,17 +157,15 @@ def derivative_stack(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[floa
     """
     dx, dy = pixel_size_m
     srow, scol = residual_sigma(sigma_m / dy, prior_blur_px), residual_sigma(sigma_m / dx, prior_blur_px)
-    img = np.asarray(image, dtype=np.float32)
-    out: dict = {}
-    for ocol in sorted({o[1] for o in orders}):
-        kc = gaussian_kernel1d(scol, ocol, truncate).astype(np.float32)
-        tmp = correlate1d(img, kc, 1)
-        for orow in sorted({o[0] for o in orders if o[1] == ocol}):
-            kr = gaussian_kernel1d(srow, orow, truncate).astype(np.float32)
-            d = correlate1d(tmp, kr, 0)
-            d *= np.float32(1.0 / (dy ** orow * dx ** ocol))
-            out[(orow, ocol)] = d
-    return out
+    # one sweep (lineament._kernels.derivative_sweep): the numbers, bit for bit, of
+    # correlate1d(correlate1d(image, x kernel, 1), y kernel, 0) * scale for each order
+    x_orders = sorted({o[1] for o in orders})
+    y_orders = sorted({o[0] for o in orders})
+    pairs = [(x_orders.index(ocol), y_orders.index(orow)) for orow, ocol in orders]
+    stack = derivative_sweep(image, [gaussian_kernel1d(scol, o, truncate) for o in x_orders],
+                             [gaussian_kernel1d(srow, o, truncate) for o in y_orders], pairs,
+                             [1.0 / (dy ** orow * dx ** ocol) for orow, ocol in orders])
+    return {order: stack[k] for k, order in enumerate(orders)}
 
 
 #: Rounding floors already computed, by detector, scale, cell size, truncation, prior blur and

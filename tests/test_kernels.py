@@ -205,3 +205,28 @@ def test_smooth_pair_is_two_separable_passes_per_image(shape, sigma_rc, threads,
     assert np.array_equal(got_b, gaussian_derivative(b, sigma_rc, (0, 0)))
     with pytest.raises(ValueError):
         smooth_pair(a, np.zeros((shape[0] + 1, shape[1]), np.float32), k_row, k_col)
+
+
+@pytest.mark.parametrize("shape", [(1, 1), (3, 2), (9, 31), (64, 50), (131, 77)])
+@pytest.mark.parametrize("threads", ["1", "3"])
+def test_derivative_sweep_is_the_passes_one_after_the_other(shape, threads, monkeypatch):
+    # Reference: correlate1d along rows, then along columns, then the scale, for each output (bit for
+    # bit), as lineament.detectors.derivative_stack computed them before; those passes are held to
+    # scipy.ndimage.correlate1d above.  Symmetric, antisymmetric and asymmetric column kernels.
+    from lineament._kernels import correlate1d, derivative_sweep, kernel_symmetry
+    from lineament.scalespace import gaussian_kernel1d
+
+    monkeypatch.setenv("LINEAMENT_THREADS", threads)
+    rng = np.random.default_rng(shape[0] * 31 + shape[1])
+    img = (rng.normal(size=shape) * 100).astype(np.float32)
+    xk = [gaussian_kernel1d(2.0, o, 4.0) for o in (0, 1, 2)]
+    yk = [gaussian_kernel1d(2.5, o, 4.0) for o in (0, 1, 2)]
+    yk.append(rng.normal(size=yk[0].size))  # no symmetry
+    assert [kernel_symmetry(np.float32(k)) for k in yk] == [1, -1, 1, 0]
+    pairs = [(1, 0), (0, 1), (2, 0), (0, 2), (1, 1), (2, 3)]
+    scales = [0.1, 0.2, 0.01, 0.02, 0.04, 3.0]
+    got = derivative_sweep(img, xk, yk, pairs, scales)
+    for p, (i, k) in enumerate(pairs):
+        ref = correlate1d(correlate1d(img, xk[i], 1), yk[k], 0)
+        ref *= np.float32(scales[p])
+        assert np.array_equal(got[p], ref), (p, np.abs(got[p] - ref).max())
