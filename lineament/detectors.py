@@ -27,8 +27,8 @@ from .crossings import (log_strength_map, rounding_floor, step_strength_factor,
 from ._curvature import orient_and_field, orientation_flips, principal_directions
 from .errors import SettingsError
 from .pyramid import MIN_DECIMATED_SIGMA_PX, MIN_EDGE_SIGMA_CELLS
-from ._kernels import correlate1d, derivative_sweep, smooth_pair
-from .scalespace import dog_response, gaussian_kernel1d, log_response, residual_sigma
+from ._kernels import correlate1d, derivative_sweep
+from .scalespace import dog_response, gaussian_derivative, gaussian_kernel1d, log_response, residual_sigma
 from .settings import DOG_RATIO
 
 
@@ -334,9 +334,8 @@ def _curvature_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[
     # smoothed principal direction (double-angle average weighted by |L_pp| where the sign
     # condition holds), oriented by the reference direction; p is then oriented along it
     sigma_rc = (sigma_m / pixel_size_m[1], sigma_m / pixel_size_m[0])
-    # both smoothed in one sweep: the numbers of gaussian_derivative(x, sigma_rc, (0, 0)) for each
-    c2, s2 = smooth_pair(wc, ws, gaussian_kernel1d(sigma_rc[1], 0, truncate),
-                         gaussian_kernel1d(sigma_rc[0], 0, truncate))
+    c2 = gaussian_derivative(wc, sigma_rc, (0, 0), truncate=truncate)
+    s2 = gaussian_derivative(ws, sigma_rc, (0, 0), truncate=truncate)
     field = orient_and_field(c2, s2, ORIENTATION_REFERENCE, lx, ly, px, py)
     allowed = condition & ~orientation_flips(px, py)
     a = np.float32(0.5) * (lxx - lyy) if noise else None

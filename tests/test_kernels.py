@@ -186,27 +186,6 @@ def test_log_sweep_is_four_passes_then_the_gradient_bit_for_bit(shape, threads, 
     assert no_x is None and no_y is None and np.array_equal(out3, ref) and np.array_equal(mag3, mag)
 
 
-@pytest.mark.parametrize("shape", [(1, 1), (2, 5), (7, 3), (40, 33), (129, 70)])
-@pytest.mark.parametrize("sigma_rc", [(2.0, 2.0), (4.0, 2.5), (1.0, 8.0)])
-@pytest.mark.parametrize("threads", ["1", "3"])
-def test_smooth_pair_is_two_separable_passes_per_image(shape, sigma_rc, threads, monkeypatch):
-    # Reference: the two passes one after the other (correlate1d along rows, then along columns),
-    # bit for bit, which are held to scipy.ndimage.correlate1d above.
-    from lineament._kernels import smooth_pair
-    from lineament.scalespace import gaussian_derivative, gaussian_kernel1d
-
-    monkeypatch.setenv("LINEAMENT_THREADS", threads)
-    rng = np.random.default_rng(shape[0] * 7 + shape[1])
-    a, b = (rng.normal(size=shape).astype(np.float32) for _ in range(2))
-    k_row = gaussian_kernel1d(sigma_rc[1], 0, 4.0)
-    k_col = gaussian_kernel1d(sigma_rc[0], 0, 4.0)
-    got_a, got_b = smooth_pair(a, b, k_row, k_col)
-    assert np.array_equal(got_a, gaussian_derivative(a, sigma_rc, (0, 0)))
-    assert np.array_equal(got_b, gaussian_derivative(b, sigma_rc, (0, 0)))
-    with pytest.raises(ValueError):
-        smooth_pair(a, np.zeros((shape[0] + 1, shape[1]), np.float32), k_row, k_col)
-
-
 @pytest.mark.parametrize("shape", [(1, 1), (3, 2), (9, 31), (64, 50), (131, 77)])
 @pytest.mark.parametrize("threads", ["1", "3"])
 def test_derivative_sweep_is_the_passes_one_after_the_other(shape, threads, monkeypatch):

@@ -123,3 +123,17 @@ def test_fill_voids_keeps_valid_cells_and_fills_smoothly():
     assert far[50, 50] == 0.0
     const = fill_voids(np.where(valid, 7.0, 0).astype(np.float32), valid, (6.0, 6.0))
     np.testing.assert_allclose(const, 7.0, rtol=1e-6)
+
+
+@pytest.mark.parametrize("order_rc", [(0, 0), (1, 0), (0, 2), (1, 1), (2, 1)])
+def test_gaussian_derivative_is_the_two_passes_bit_for_bit(order_rc):
+    # Reference: the separable passes one after the other (lineament._kernels.correlate1d, held to
+    # scipy.ndimage.correlate1d in test_kernels).
+    from lineament._kernels import correlate1d
+
+    rng = np.random.default_rng(sum(order_rc))
+    img = (rng.normal(size=(57, 43)) * 50).astype(np.float32)
+    sigma_rc = (2.5, 1.7)
+    k0 = gaussian_kernel1d(sigma_rc[0], order_rc[0], 4.0)
+    k1 = gaussian_kernel1d(sigma_rc[1], order_rc[1], 4.0)
+    assert np.array_equal(gaussian_derivative(img, sigma_rc, order_rc), correlate1d(correlate1d(img, k1, 1), k0, 0))
