@@ -27,7 +27,7 @@ from .crossings import (log_strength_map, rounding_floor, step_strength_factor,
 from ._curvature import orient_and_field, orientation_flips, principal_directions
 from .errors import SettingsError
 from .pyramid import MIN_DECIMATED_SIGMA_PX, MIN_EDGE_SIGMA_CELLS
-from ._kernels import correlate1d, derivative_sweep
+from ._kernels import derivative_sweep
 from .scalespace import dog_response, gaussian_derivative, gaussian_kernel1d, log_response, residual_sigma
 from .settings import DOG_RATIO
 
@@ -128,8 +128,9 @@ def derivative_stack(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[floa
                      orders: tuple[tuple[int, int], ...], *, truncate: float, prior_blur_px: float = 0.0) -> dict:
     """Gaussian derivatives of one image at one scale, in ground units.
 
-    The separable passes are shared: each column-direction kernel is applied
-    once, then every row-direction kernel it is needed with.  The result is
+    The separable passes are shared, in one sweep over rolling buffers
+    (:func:`lineament._kernels.derivative_sweep`): each x kernel runs once
+    along every row, then each output's y kernel down the columns.  The result is
     the same as :func:`~lineament.scalespace.gaussian_derivative` (same
     kernels, same border mode) divided by the pixel size per axis.
 
