@@ -310,7 +310,9 @@ def test_serial_executor_error_waits_for_traces_handed_over(scene, monkeypatch):
     monkeypatch.setattr(pipeline, "_window_level_sets", failing_levels)
     with pytest.raises(RuntimeError, match="disk gone"):
         pipeline.run_extraction(source, ExtractionSettings(scales="20,40", features="edges"), tile_size=100)
-    assert traced == [0, 1]  # both scales of the first tile were traced before the error surfaced
+    # both scales of the first tile were traced before the error surfaced (in either order: two
+    # tracing threads)
+    assert sorted(traced) == [0, 1]
     assert pipeline._tracer_threads().submit(lambda: 1).result(timeout=5) == 1
 
 
@@ -354,3 +356,32 @@ def test_noise_blocks_run_in_lanes_but_report_in_order(scene, monkeypatch):
     monkeypatch.setattr(pipeline, "_noise_samples", failing)
     with pytest.raises(RuntimeError, match="bad block"):
         pipeline.run_extraction(source, ExtractionSettings(scales="20,40"), tile_size=100)
+
+
+@pytest.mark.parametrize("features", ["edges", "edges,valleys,ridges"])
+def test_void_free_windows_are_cut_to_what_their_core_needs(features, monkeypatch):
+    # A window without voids is filtered on its core plus the kernels' reach only
+    # (pipeline._void_free_window); the lines must be exactly those of the uncut windows.
+    from lineament import pipeline
+
+    z, valid, g = _scene(n=480, seed=5)  # the void at rows 40-70, columns 220-260
+    seen = []
+    real = pipeline._void_free_window
+
+    def spy(plan, tile, values, window_valid):
+        out = real(plan, tile, values, window_valid)
+        seen.append((tile.window, out[0].window, bool(window_valid.all()), out[3]))
+        return out
+
+    monkeypatch.setattr(pipeline, "_void_free_window", spy)
+    s = ExtractionSettings(scales="20,40,80", features=features)
+    cut = extract_array(z, g, s, valid=valid, tile_size=96)
+    # every window with a void kept whole; void-free windows cut smaller where the halo allowed
+    assert all(old == new and voids for old, new, all_valid, voids in seen if not all_valid)
+    assert any(old != new and not voids for old, new, all_valid, voids in seen if all_valid)
+    for old, new, _, _ in seen:
+        assert old[0] <= new[0] and old[1] <= new[1] and new[2] <= old[2] and new[3] <= old[3]
+    monkeypatch.setattr(pipeline, "_void_free_window", lambda plan, tile, v, ok: (tile, v, ok, True))
+    uncut = extract_array(z, g, s, valid=valid, tile_size=96)
+    assert len(cut.lines) >= 3
+    _assert_same_lines(uncut, cut, atol_px=0.0)
