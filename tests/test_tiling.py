@@ -385,3 +385,25 @@ def test_void_free_windows_are_cut_to_what_their_core_needs(features, monkeypatc
     uncut = extract_array(z, g, s, valid=valid, tile_size=96)
     assert len(cut.lines) >= 3
     _assert_same_lines(uncut, cut, atol_px=0.0)
+
+
+@pytest.mark.parametrize("threads", [1, 2, 3])
+def test_strided_overview_reads_strips_in_threads_in_order(tmp_path, monkeypatch, threads):
+    # The overview is every k-th row and column of the raster as rasterio reads it whole, whether
+    # its strips are read one at a time or several at once on threads.
+    import rasterio
+
+    import lineament.tiling as tiling
+    from lineament.raster_io import open_raster
+
+    rng = np.random.default_rng(4)
+    z = rng.normal(100.0, 5.0, (301, 207)).astype(np.float32)
+    z[17:40, 50:90] = -9999.0
+    path = write_geotiff(tmp_path / "ov.tif", z, utm_georef(301, 207), nodata=-9999.0)
+    monkeypatch.setattr(tiling, "STRIP_PIXELS", 207 * 24)  # a dozen strips, the last one short
+    source = tiling.FileSource(open_raster(path))
+    values, valid = tiling.strided_overview(source.read, source.georef, 301 * 207 // 9, threads=threads)
+    with rasterio.open(path) as ds:
+        ref = ds.read(1, masked=True)
+    np.testing.assert_array_equal(valid, ~np.ma.getmaskarray(ref)[::3, ::3])
+    np.testing.assert_array_equal(values[valid], ref.data[::3, ::3][valid])
