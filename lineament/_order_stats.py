@@ -3,7 +3,8 @@
 The noise level of a run is a median of several million absolute gradient
 components; partial sorting (``numpy.partition``) moves every value around
 several times, while counting the upper and then the lower 16 bits of each
-value's bit pattern finds the same element in two read-only passes.  For
+value's bit pattern finds the same element in two read-only passes (the
+two middle elements of an even count too).  For
 non-negative IEEE 754 floats the order of the bit patterns, read as
 unsigned integers, is the order of the values (IEEE 754-2019, section 3.4:
 the encoding is sign, biased exponent, significand); negative values are
@@ -32,9 +33,9 @@ def _order_key(b, signed):  # pragma: no cover - compiled
         return 0xFFFFFFFF
     if not signed:
         return b & 0x7FFFFFFF
-    if b & 0x80000000:  # negative: larger magnitudes first
-        return (~b) & 0xFFFFFFFF
-    return b | 0x80000000
+    # negative (sign bit set): all bits inverted, so larger magnitudes come first; otherwise the
+    # sign bit set.  Written without a branch on the sign, which data of both signs would mispredict.
+    return b ^ (0x80000000 | ((b >> 31) * 0x7FFFFFFF))
 
 
 @numba.njit(cache=True, nogil=True)
@@ -63,6 +64,59 @@ def _kth_key(bits, k, signed):  # pragma: no cover - compiled
             return (top << 16) | b
         below += hist[b]
     return 0  # not reached for 0 <= k < n
+
+
+@numba.njit(cache=True, nogil=True)
+def _two_keys(bits, k, signed):  # pragma: no cover - compiled
+    """Order keys of the k-th and (k+1)-th smallest (0-based), in the two passes of :func:`_kth_key`.
+
+    The (k+1)-th lies in the k-th's bucket of the upper 16 bits or, when
+    that bucket holds no more, is the smallest key of the next non-empty one.
+    """
+    n = bits.size
+    hist = np.zeros(65536, np.int64)
+    for i in range(n):
+        hist[_order_key(np.int64(bits[i]), signed) >> 16] += 1
+    below = 0
+    top = 0
+    for b in range(65536):
+        if below + hist[b] > k:
+            top = b
+            break
+        below += hist[b]
+    rank = k - below
+    nxt = top
+    if rank + 1 >= hist[top]:  # the (k+1)-th is in the next non-empty bucket
+        nxt = top + 1
+        while nxt < 65536 and hist[nxt] == 0:
+            nxt += 1
+    hist[:] = 0
+    least_next = np.int64(0xFFFFFFFF)
+    for i in range(n):
+        v = _order_key(np.int64(bits[i]), signed)
+        u = v >> 16
+        if u == top:
+            hist[v & 0xFFFF] += 1
+        elif u == nxt and v < least_next:
+            least_next = v
+    below = 0
+    first = 0
+    second = -1
+    for b in range(65536):
+        if below + hist[b] > rank:
+            first = (top << 16) | b
+            if below + hist[b] > rank + 1:
+                second = first
+            else:
+                for b2 in range(b + 1, 65536):
+                    if hist[b2] > 0:
+                        second = (top << 16) | b2
+                        break
+            break
+        below += hist[b]
+    if second < 0:
+        second = least_next
+    return first, second
 
 
 def _value_of_key(key: int, signed: bool) -> float:
@@ -103,7 +157,8 @@ def _middle(values: np.ndarray, signed: bool) -> tuple[float, float, bool] | Non
     if n % 2:
         v = _kth(a, k, signed)
         return v, v, True
-    return _kth(a, k - 1, signed), _kth(a, k, signed), False
+    lower, upper = _two_keys(a.view(np.uint32), k - 1, bool(signed))
+    return _value_of_key(int(lower), signed), _value_of_key(int(upper), signed), False
 
 
 def median_abs(values: np.ndarray) -> float:

@@ -903,7 +903,7 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
     inside = ov_values[ov_valid]
     offset = median(inside) if inside.dtype == np.float32 else float(np.median(inside))
     with np.errstate(invalid="ignore", over="ignore"):
-        span = float(np.max(np.abs((ov_values[ov_valid] - offset) * settings.z_factor)))
+        span = float(np.max(np.abs((inside - offset) * settings.z_factor)))
     if not math.isfinite(span) or span > float(np.finfo(np.float32).max) / 16:
         raise InputError(f"{name}: values overflow float32 after centring and the z factor")
     rounding_std = ROUNDING_STD_PER_SPAN * span

@@ -48,3 +48,28 @@ def test_random_values_match_numpy(a):
     assert median_abs(a) == float(np.median(np.abs(a).astype(np.float64)))
     with np.errstate(over="ignore"):  # numpy's float32 mean of two middle values may overflow too
         assert median(a) == float(np.median(a)) or np.isnan(float(np.median(a)))
+
+
+@pytest.mark.parametrize("pair", [(1.0, 2.0), (1.0, float(np.nextafter(np.float32(1.0), np.float32(2.0)))),
+                                  (3.0, 3.0), (-0.0, 0.0), (5.0, np.inf), (5.0, np.nan), (-np.inf, 7.0)])
+@pytest.mark.parametrize("spread", [0, 1, 6])
+def test_two_middle_elements_in_one_pass_pair(pair, spread):
+    # The two middle elements of an even count come from one selection (_order_stats._two_keys): in
+    # one bucket of the upper 16 bits, in neighbouring ones, in distant ones, tied, or with NaN as
+    # the upper one.  Reference: numpy.median / numpy.partition (NaN sorts last).
+    lo, hi = pair
+    rng = np.random.default_rng(spread)
+    below = -np.abs(rng.normal(size=spread)).astype(np.float32) - 10.0  # all below lo
+    above = np.full(spread, np.nan, np.float32)  # all sort above hi
+    a = np.concatenate([below, np.array([hi, lo], np.float32), above])
+    rng.shuffle(a)
+    ref = np.sort(a)
+    m = a.size // 2
+    lower, upper = ref[m - 1], ref[m]
+    got = median(a)
+    want = float(np.mean(np.array([lower, upper], np.float32)))
+    assert (np.isnan(got) and np.isnan(want)) or got == want
+    mags = np.sort(np.abs(a))
+    got = median_abs(a)
+    want = 0.5 * (float(mags[m - 1]) + float(mags[m]))
+    assert (np.isnan(got) and np.isnan(want)) or got == want
