@@ -12,6 +12,9 @@ doi:10.1007/s00190-012-0578-z
 
 from __future__ import annotations
 
+import math
+import threading
+
 import numpy as np
 from pyproj import CRS, Transformer
 
@@ -25,9 +28,21 @@ def fold_axial(deg: np.ndarray) -> np.ndarray:
     return out
 
 
+#: Transformers to longitude and latitude made in this thread, by CRS (pyproj's transformers are
+#: not to be shared between threads; making one took about half a millisecond, several per run).
+_LONLAT = threading.local()
+
+
 def _to_lonlat(x: np.ndarray, y: np.ndarray, crs: CRS) -> tuple[np.ndarray, np.ndarray]:
     """Longitude and latitude in degrees (x, y taken in GDAL's traditional longitude-first order)."""
-    tr = Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
+    made = getattr(_LONLAT, "made", None)
+    if made is None:
+        made = _LONLAT.made = {}
+    tr = made.get(crs)
+    if tr is None:
+        if len(made) >= 8:  # a few CRSs at a time are all a run or a survey uses
+            made.clear()
+        tr = made[crs] = Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True)
     return tr.transform(x, y)
 
 
@@ -81,6 +96,62 @@ def _axis_chords(u: np.ndarray, v: np.ndarray, first: np.ndarray, last: np.ndarr
 def line_measures(xs: list[np.ndarray], ys: list[np.ndarray], georef: GeoRef) -> dict[str, np.ndarray]:
     """Lengths and azimuths of lines in the CRS of a raster; see :func:`measure_lines`."""
     return measure_lines(xs, ys, georef.crs)
+
+
+#: Directions of the unit steps :func:`path_length_margin` measures (half a turn: a step and its
+#: reverse have the same length).
+_MARGIN_DIRECTIONS = 8
+
+
+def path_length_margin(georef: GeoRef, pixel_m: tuple[float, float], *, samples: int = 9,
+                       safety: float = 1.01) -> float:
+    """Bound on a path's geodesic length over its length in pixel metres, anywhere in a raster.
+
+    A traced path is measured cheaply as the sum of its steps, each
+    ``hypot(d_col * pixel_m[0], d_row * pixel_m[1])``; the length a line is
+    written with is geodesic (:func:`measure_lines`).  The geodesic between
+    two vertices is no longer than the ellipsoid curve the straight map
+    segment between them comes from, which is the segment's map length
+    divided by the map's scale along it.  So the ratio of geodesic to pixel
+    metres is at most the largest ratio over the raster and over directions
+    of a short step.  It is measured here: unit pixel steps in
+    :data:`_MARGIN_DIRECTIONS` directions at ``samples`` x ``samples`` points
+    spread over the raster, mapped and measured as the writer measures
+    (``pyproj`` transformation to longitude and latitude, geodesic on the
+    CRS's ellipsoid).  The largest ratio is divided by cos(pi / 16), which
+    covers a direction between the sampled ones (the ratio's square is a
+    quadratic form in the direction), then multiplied by ``safety`` for the
+    variation between sample points (smooth for the map projections of
+    surveys; UTM's scale changes by 4e-4 across a zone).
+
+    Returns ``safety`` without a CRS (lengths are planar there), and 1.5
+    (a bound for scales above 2/3) when the measurement fails.
+    """
+    if georef.crs is None:
+        return safety
+    h, w = georef.shape
+    r0, c0 = np.meshgrid(np.linspace(0.0, h - 1.0, samples), np.linspace(0.0, w - 1.0, samples), indexing="ij")
+    angle = np.arange(_MARGIN_DIRECTIONS) * (np.pi / _MARGIN_DIRECTIONS)
+    dr, dc = np.sin(angle), np.cos(angle)
+    r0 = np.repeat(r0.ravel(), angle.size)
+    c0 = np.repeat(c0.ravel(), angle.size)
+    dr = np.tile(dr, samples * samples)
+    dc = np.tile(dc, samples * samples)
+    try:
+        x, y = georef.pixel_to_map(np.concatenate([r0, r0 + dr]), np.concatenate([c0, c0 + dc]))
+        if georef.crs.is_geographic:
+            lon, lat = x, y
+        else:
+            lon, lat = _to_lonlat(x, y, georef.crs)
+        n = r0.size
+        _, _, dist = geod_of(georef.crs).inv(lon[:n], lat[:n], lon[n:], lat[n:])
+        ratio = np.asarray(dist, dtype=np.float64) / np.hypot(dc * pixel_m[0], dr * pixel_m[1])
+        worst = float(np.max(ratio))
+    except Exception:  # pragma: no cover - a CRS pyproj cannot transform
+        return 1.5
+    if not np.isfinite(worst) or worst <= 0.0:
+        return 1.5
+    return worst / math.cos(math.pi / 16) * safety
 
 
 def geod_of(crs: CRS) -> Geod:

@@ -35,6 +35,7 @@ from ._order_stats import median, median_abs
 from .crossings import MAD_TO_SIGMA, ROUNDING_STD_PER_SPAN, Core, Fragment, keep_run, stitch_fragments, trace_level_set
 from .detectors import Detector, detectors_for
 from .errors import InputError, SettingsError
+from .geodesy import path_length_margin
 from .georef import GeoRef
 from .pyramid import LEVEL_BLUR_PX, Pyramid, decimation_factor, pyramid_reach
 from .raster_io import RasterData, open_raster
@@ -118,6 +119,7 @@ class RunPlan:
     rounding_std: float
     thresholds: dict = field(default_factory=dict)  # (scale index, detector index) -> Thresholds
     search_sigmas: tuple = ()  # scales searched for best_scale_m (metres); empty: not selected
+    path_margin: float = 1.5  # geodesic length / length in pixel metres, at most (path_length_margin)
 
 
 @dataclass
@@ -431,25 +433,25 @@ def _profile_sum(plan: RunPlan, filled: np.ndarray, tile: Tile, kind: str, rows:
     return np.append(prof.sum(axis=1), b - a)
 
 
-#: A piece whose path, in metres of the band's pixel size, times this margin is shorter than the
-#: minimum length cannot be written, so it is dropped as soon as it is traced.  Its written length
-#: is geodesic and measured after simplification, which only shortens a path; the margin covers
-#: the pixel size changing within a latitude band (1 %) and map projections whose scale factor is
-#: above 2/3 (UTM: 0.9996 to about 1.001).
-PATH_LENGTH_MARGIN = 1.5
-
-
 def min_length_m(settings: ExtractionSettings, sigma_m: float) -> float:
     """Shortest line written at a scale, metres (``min_length_m``, else ``min_length_sigmas`` sigmas)."""
     return settings.min_length_m if settings.min_length_m is not None else settings.min_length_sigmas * sigma_m
 
 
-def _surely_shorter(rows: np.ndarray, cols: np.ndarray, pixel_m: tuple[float, float], length_m: float) -> bool:
-    """True when a traced path cannot measure ``length_m`` once written (see :data:`PATH_LENGTH_MARGIN`)."""
+def _surely_shorter(rows: np.ndarray, cols: np.ndarray, pixel_m: tuple[float, float], length_m: float,
+                    margin: float) -> bool:
+    """True when a traced path cannot measure ``length_m`` once written.
+
+    A piece whose path, in pixel metres, times ``margin`` (a bound on the
+    ratio of geodesic to pixel metres, :func:`~lineament.geodesy.path_length_margin`)
+    is shorter than the minimum length cannot be written: its written length
+    is geodesic and measured after simplification, which only shortens a
+    path.  Such pieces are dropped as soon as they are traced.
+    """
     if rows.size < 2:
         return True
     path = float(np.hypot(np.diff(cols) * pixel_m[0], np.diff(rows) * pixel_m[1]).sum())
-    return path * PATH_LENGTH_MARGIN < length_m
+    return path * margin < length_m
 
 
 def _trace_one(plan: RunPlan, item) -> tuple[list, list]:
@@ -470,7 +472,7 @@ def _trace_one(plan: RunPlan, item) -> tuple[list, list]:
         p = [(r * factor, c * factor, st) for r, c, st in p]
         f = [Fragment(fr.rows * factor, fr.cols * factor, fr.strength, fr.start_open, fr.end_open) for fr in f]
     shortest = min_length_m(plan.settings, sp.sigma_m)
-    p = [(r, c, st) for r, c, st in p if not _surely_shorter(r, c, plan.pixel_m, shortest)]
+    p = [(r, c, st) for r, c, st in p if not _surely_shorter(r, c, plan.pixel_m, shortest, plan.path_margin)]
     pieces, fragments = [], []
     for r, c, st in p:
         ring = r.size > 2 and r[0] == r[-1] and c[0] == c[-1]
@@ -923,6 +925,7 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
     plans, band_tiles = [], []
     first_index = 0
     for band_no, ((b0, b1), (pixel_m, scales)) in enumerate(zip(bands, band_scales)):
+        margin = path_length_margin(georef.window(b0, 0, b1 - b0, georef.width), pixel_m)
         plan = RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset, rounding_std,
                        search_sigmas=search)
         # noise level per scale and detector, on fixed blocks of this band
@@ -937,7 +940,7 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
             tile = tiles[0]
             values, valid = source.read(tile.window)
             plan = RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset, rounding_std,
-                           {}, search)
+                           {}, search, margin)
             def set_thresholds(item) -> None:
                 samples = [_noise_from([item], b.core, per_block) for b in blocks]
                 plan.thresholds[item[:2]] = _noise_thresholds(settings, samples, item[:2])
@@ -954,7 +957,7 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
         thresholds = {(si, di): _noise_thresholds(settings, samples, (si, di))
                       for si in range(len(scales)) for di in range(len(detectors))}
         plans.append(RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset,
-                             rounding_std, thresholds, search))
+                             rounding_std, thresholds, search, margin))
         first_index += len(tiles)
         band_tiles.append(tiles)
 

@@ -67,3 +67,30 @@ def test_overall_direction_ignores_a_short_hook():
     assert m["azimuth_grid_deg"][0] == pytest.approx(45.0, abs=0.5)
     chord = np.degrees(np.arctan2(x[-1] - x[0], y[-1] - y[0]))
     assert abs(chord - 45.0) > 3.0
+
+
+def test_lonlat_transformers_are_kept_per_thread_and_crs():
+    # geodesy._to_lonlat keeps one transformer per CRS and thread; the numbers are pyproj's own
+    # (a transformer made for the call), for several CRSs in turn and from another thread.
+    import threading
+
+    from pyproj import CRS, Transformer
+
+    from lineament.geodesy import _to_lonlat
+
+    x = np.array([500_000.0, 512_345.6, 487_000.0])
+    y = np.array([6_600_000.0, 6_612_000.0, 6_590_000.0])
+    crss = [CRS.from_epsg(e) for e in (32633, 32632, 3035, 32633)]
+
+    def check(out):
+        for crs in crss:
+            ref = Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True).transform(x, y)
+            got = _to_lonlat(x, y, crs)
+            out.append(np.array_equal(got[0], ref[0]) and np.array_equal(got[1], ref[1]))
+
+    here, there = [], []
+    check(here)
+    t = threading.Thread(target=check, args=(there,))
+    t.start()
+    t.join()
+    assert here == there == [True] * 4

@@ -164,16 +164,23 @@ def test_dog_operator_finds_the_same_scarp():
     ("EPSG:32633", Affine(10.0, 0.0, 500000.0, 0.0, -10.0, 6600000.0)),             # UTM, 10 m
     ("EPSG:4326", Affine(1 / 3600, 0.0, 15.0, 0.0, -1 / 3600, 60.2)),               # 1 arc-second at 60 N
     ("EPSG:3857", Affine(10.0, 0.0, 1_600_000.0, 0.0, -10.0, 8_400_000.0)),         # Web Mercator near 60 N
+    ("EPSG:2249", Affine(30.0, 0.0, 700_000.0, 0.0, -30.0, 3_000_000.0)),           # US survey feet
+    ("EPSG:3031", Affine(100.0, 0.0, -20_000.0, 0.0, -100.0, 20_000.0)),            # polar stereographic
+    (None, Affine(1.0, 0.0, 0.0, 0.0, -1.0, 0.0)),                                   # pixel grid
 ])
 def test_pieces_dropped_early_are_shorter_than_written_lines_need(crs, transform):
-    # A piece dropped right after tracing (pipeline._surely_shorter) must be one the writer would
-    # drop too: its written, geodesic length (pyproj.Geod through vectorize.pieces_to_lines) is
-    # below the minimum whenever the early test says so.
+    # A piece dropped right after tracing (pipeline._surely_shorter, with the raster's
+    # geodesy.path_length_margin) must be one the writer would drop too: its written, geodesic
+    # length (pyproj.Geod through vectorize.pieces_to_lines) is below the minimum whenever the early
+    # test says so.  The margin is also tight: within 4 % of the largest ratio of written length to
+    # path length among the pieces themselves.
+    from lineament.geodesy import path_length_margin
     from lineament.pipeline import _surely_shorter
     from lineament.vectorize import pieces_to_lines
 
-    g = GeoRef.from_rasterio(transform, CRS.from_user_input(crs), 400, 400)
+    g = GeoRef.from_rasterio(transform, None if crs is None else CRS.from_user_input(crs), 400, 400)
     pixel_m = g.pixel_size_m()
+    margin = path_length_margin(g, pixel_m)
     rng = np.random.default_rng(12)
     pieces = []
     for _ in range(300):
@@ -187,9 +194,13 @@ def test_pieces_dropped_early_are_shorter_than_written_lines_need(crs, transform
                                         "source": "test"})
     assert len(lines) == len(pieces)  # none is degenerate here, so lines and pieces pair up in order
     dropped = 0
+    worst = 0.0
     for (r, c, _), line in zip(pieces, lines):
-        for need in (20.0, 60.0, 160.0, 400.0):
-            if _surely_shorter(r, c, pixel_m, need):
+        path_m = np.hypot(np.diff(c) * pixel_m[0], np.diff(r) * pixel_m[1]).sum()
+        worst = max(worst, line.length_m / path_m)
+        for need in np.array([20.0, 60.0, 160.0, 400.0]) * pixel_m[0] / 10.0:
+            if _surely_shorter(r, c, pixel_m, need, margin):
                 dropped += 1
                 assert line.length_m < need
     assert dropped > 100  # the test exercises the early drop
+    assert worst <= margin < 1.04 * worst
