@@ -87,12 +87,16 @@ class Lineament:
     def properties(self) -> dict:
         """Attributes as a plain dict (keys of :data:`ATTRIBUTE_TYPES`)."""
         out = {}
-        for k in ATTRIBUTE_TYPES:
+        for k, decimals in _ROUNDING:
             v = getattr(self, k)
             if isinstance(v, float):
-                v = None if np.isnan(v) else round(v, _DECIMALS.get(k, 4))
+                v = None if v != v else round(v, decimals)  # NaN -> None
             out[k] = v
         return out
+
+
+#: (attribute, decimals) in the order of :data:`ATTRIBUTE_TYPES`.
+_ROUNDING = tuple((k, _DECIMALS.get(k, 4)) for k in ATTRIBUTE_TYPES)
 
 
 def pieces_to_lines(pieces: Iterable[CrossingPiece], georef: GeoRef, *, tolerance_m: float,
