@@ -235,7 +235,8 @@ def _centre(values: np.ndarray, valid: np.ndarray, offset: float, z_factor: floa
     """``(values - offset) * z_factor`` as float32, 0 at invalid cells (one new array)."""
     with np.errstate(invalid="ignore", over="ignore"):
         arr = values - offset
-        arr *= z_factor
+        if z_factor != 1.0:  # multiplying by 1 changes no value (IEEE 754), so the pass is saved
+            arr *= z_factor
     if not valid.all():
         arr = np.where(valid, arr, arr.dtype.type(0))
     return arr.astype(np.float32, copy=False)

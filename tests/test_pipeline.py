@@ -204,3 +204,25 @@ def test_pieces_dropped_early_are_shorter_than_written_lines_need(crs, transform
                 assert line.length_m < need
     assert dropped > 100  # the test exercises the early drop
     assert worst <= margin < 1.04 * worst
+
+
+@pytest.mark.parametrize("z_factor", [1.0, 2.5, -1.0])
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_centring_is_the_plain_formula(z_factor, dtype):
+    # pipeline._centre skips the multiplication by a z factor of 1; every value, signed zeros and
+    # infinities included, must still be numpy's (values - offset) * z_factor as float32, with 0 at
+    # invalid cells.
+    from lineament.pipeline import _centre
+
+    values = np.array([[0.0, -0.0, 1e30, -np.inf], [np.inf, 3.25, -7.5e-3, 123456.789]], dtype)
+    valid = np.array([[True, True, True, False], [True, True, False, True]])
+    with np.errstate(invalid="ignore", over="ignore"):
+        ref = ((values - 0.0) * z_factor).astype(np.float32)
+        ref_off = ((values - 12.5) * z_factor).astype(np.float32)
+    ref[~valid] = 0.0
+    ref_off[~valid] = 0.0
+    for offset, want in ((0.0, ref), (12.5, ref_off)):
+        got = _centre(values, valid, offset, z_factor)
+        assert got.dtype == np.float32
+        np.testing.assert_array_equal(got, want)
+        assert np.array_equal(np.signbit(got), np.signbit(want))
