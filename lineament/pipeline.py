@@ -404,12 +404,16 @@ def _noise_from(level_sets, core: Core, per_block: int) -> dict:
         where = ls.allowed if ls.noise_mask is None else ls.noise_mask
         if where is not None:
             ok = ok & where[sl]
-        idx = np.flatnonzero(ok.ravel())
-        step = max(1, idx.size // max(1, per_block))
-        idx = idx[::step]
-        comps = [np.asarray(x[sl]).ravel()[idx] for x in ls.noise_samples]
-        out[(si, di)] = (np.concatenate(comps).astype(np.float32) if comps else np.zeros(0, np.float32), ls.noise_floor,
-                         ls.noise_factor)
+        if ok.all():  # the usual case: every cell, so a stride instead of an index (same samples)
+            step = max(1, ok.size // max(1, per_block))
+            comps = [np.asarray(x[sl]).reshape(-1)[::step] for x in ls.noise_samples]
+        else:
+            idx = np.flatnonzero(ok.ravel())
+            step = max(1, idx.size // max(1, per_block))
+            idx = idx[::step]
+            comps = [np.asarray(x[sl]).ravel()[idx] for x in ls.noise_samples]
+        out[(si, di)] = (np.concatenate(comps).astype(np.float32, copy=False) if comps else np.zeros(0, np.float32),
+                         ls.noise_floor, ls.noise_factor)
     return out
 
 
@@ -495,6 +499,10 @@ TRACE_THREADS = 2
 #: memory; since the serial executor filters the next window while the last traces of one finish
 #: (:func:`serial_executor`), up to twice this many can be held.
 TRACE_QUEUE = 4
+#: Bands of rows each level set of a raster processed as one window is traced in (see
+#: :func:`_row_bands`): one window's finest level set is the longest single trace of a run, and
+#: in bands the tracing threads share it.
+WHOLE_RASTER_TRACE_BANDS = 4
 
 
 def _tracer_threads():
@@ -504,7 +512,48 @@ def _tracer_threads():
     return thread_pool("lineament-trace", TRACE_THREADS)
 
 
-def _trace_from(plan: RunPlan, level_sets, before=None, *, deferred: bool = False):
+#: Rows (of the grid a level set is on) beyond its part of the core that a band of a level set
+#: traced on its own takes along (:func:`_row_bands`): the vertices of segments that cross the
+#: part's edge and their strength taps (three rows either way) lie within them.
+BAND_MARGIN = 8
+
+
+def _row_bands(item, parts: int, search: bool = False) -> list:
+    """Split one level set's tracing into ``parts`` bands of core rows, each with its own window.
+
+    A band is traced like a tile of its own: its core is its rows of the
+    window's core, its window those rows plus :data:`BAND_MARGIN` either way
+    (views of the level set, no copies).  Runs crossing from one band to the
+    next come out as fragments and are joined with the others, so the lines
+    are the same as from one trace of the whole level set (the tile-size
+    tests check the same property for tiles).  Small level sets are not
+    split; nor are any when best scales are searched, whose profiles are
+    sampled on the whole filled window.
+    """
+    si, di, ls, usable, filled, factor, tile = item
+    (r0, _), core = _coarse_window(tile, factor)
+    rows = core.row1 - core.row0
+    parts = min(parts, rows // (4 * BAND_MARGIN))
+    if parts < 2 or search:
+        return [item]
+    h = ls.field.shape[0]
+    cuts = [core.row0 + (rows * k) // parts for k in range(parts + 1)]
+    out = []
+    for a, b in zip(cuts[:-1], cuts[1:]):
+        w0, w1 = max(r0, a - BAND_MARGIN), min(r0 + h, b + BAND_MARGIN)
+        sl = slice(w0 - r0, w1 - r0)
+        band_ls = dataclasses.replace(ls, field=ls.field[sl], strength=ls.strength[sl],
+                                      allowed=None if ls.allowed is None else ls.allowed[sl],
+                                      noise_samples=(), noise_mask=None)
+        c = tile.core
+        band_core = Core(c.row0 if a == core.row0 else a * factor, c.col0,
+                         c.row1 if b == core.row1 else b * factor, c.col1)
+        band = Tile(tile.index, band_core, (w0 * factor, tile.window[1], w1 * factor, tile.window[3]))
+        out.append((si, di, band_ls, usable[sl], None, factor, band))
+    return out
+
+
+def _trace_from(plan: RunPlan, level_sets, before=None, *, deferred: bool = False, bands: int = 1):
     """Trace every level set of a window, in order.
 
     The compiled tracer releases the interpreter lock, so level sets are
@@ -512,7 +561,9 @@ def _trace_from(plan: RunPlan, level_sets, before=None, *, deferred: bool = Fals
     :data:`TRACE_QUEUE` handed over and not yet traced) while the next one
     is filtered; results are gathered in the order of ``level_sets``, so
     nothing depends on timing.  ``before(item)``, if given, runs on each
-    item first (in this thread).
+    item first (in this thread).  With ``bands`` > 1 each level set is
+    traced in that many bands of rows (:func:`_row_bands`), so the tracing
+    threads share one large level set.
 
     Returns the :class:`TileOutput`, or with ``deferred`` a function that
     waits for the traces still running and returns it (the caller may filter
@@ -521,16 +572,18 @@ def _trace_from(plan: RunPlan, level_sets, before=None, *, deferred: bool = Fals
     from collections import deque
 
     pieces, fragments = [], []
-    pending: deque = deque()
+    pending: deque = deque()  # per level set handed over, the futures of its bands
 
     def collect() -> None:
-        p, f = pending.popleft().result()
-        pieces.extend(p)
-        fragments.extend(f)
+        for fut in pending.popleft():
+            p, f = fut.result()
+            pieces.extend(p)
+            fragments.extend(f)
 
     def drain() -> None:  # after an error: let the traces handed over finish first
-        for fut in pending:
-            fut.exception()
+        for futs in pending:
+            for fut in futs:
+                fut.exception()
 
     try:
         for item in level_sets:
@@ -538,8 +591,9 @@ def _trace_from(plan: RunPlan, level_sets, before=None, *, deferred: bool = Fals
                 before(item)
             while len(pending) >= TRACE_QUEUE:
                 collect()
-            pending.append(_tracer_threads().submit(_trace_one, plan, item))
-            del item
+            parts = _row_bands(item, bands, bool(plan.search_sigmas)) if bands > 1 else [item]
+            pending.append([_tracer_threads().submit(_trace_one, plan, part) for part in parts])
+            del item, parts
     except BaseException:
         drain()
         raise
@@ -850,7 +904,10 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
     source : ArraySource, FileSource or MosaicSource
     settings : ExtractionSettings, optional
     tile_size : int, optional
-        Core size of tiles in pixels (default :data:`~lineament.tiling.DEFAULT_TILE_SIZE`).
+        Core size of tiles in pixels.  Default: the whole raster as one window when it has at
+        most ``whole_raster_pixels`` of every detector of the run
+        (:data:`~lineament.detectors.WHOLE_RASTER_PIXELS` for edges) and lies in one latitude
+        band, else :data:`~lineament.tiling.DEFAULT_TILE_SIZE`.  Results do not depend on it.
     executor : callable, optional
         ``executor(tasks, on_done) -> results``; default serial.
     progress : callable, optional
@@ -872,6 +929,7 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
     """
     t0 = time.perf_counter()
     settings = settings or ExtractionSettings()
+    whole_if_small = tile_size is None
     tile_size = int(tile_size or DEFAULT_TILE_SIZE)
     if tile_size < 64:
         raise SettingsError(f"tile size must be at least 64 pixels, got {tile_size}")
@@ -880,6 +938,9 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
     _check_geographic(georef, name)
     detectors = detectors_for(settings, is_image=source.is_image)
     bands = latitude_bands(georef)
+    if whole_if_small and len(bands) == 1 and \
+            georef.height * georef.width <= min(d.whole_raster_pixels for d in detectors):
+        tile_size = max(tile_size, georef.height, georef.width)  # one window (noise from its own cells)
     band_scales = [_scale_plans(georef.window(b0, 0, b1 - b0, georef.width), settings, name, size_of=georef)
                    for b0, b1 in bands]
     # one decimation factor per scale for the whole raster, from its smallest sigma in pixels and
@@ -946,7 +1007,8 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
                 samples = [_noise_from([item], b.core, per_block) for b in blocks]
                 plan.thresholds[item[:2]] = _noise_thresholds(settings, samples, item[:2])
 
-            out = _trace_from(plan, _window_level_sets(plan, tile, values, valid), before=set_thresholds)
+            out = _trace_from(plan, _window_level_sets(plan, tile, values, valid), before=set_thresholds,
+                              bands=WHOLE_RASTER_TRACE_BANDS)
             if progress:
                 progress(1, 1)
             return _finish([plan], bands, [[out]], name, 1, time.perf_counter() - t0)

@@ -407,3 +407,50 @@ def test_strided_overview_reads_strips_in_threads_in_order(tmp_path, monkeypatch
         ref = ds.read(1, masked=True)
     np.testing.assert_array_equal(valid, ~np.ma.getmaskarray(ref)[::3, ::3])
     np.testing.assert_array_equal(values[valid], ref.data[::3, ::3][valid])
+
+
+def test_small_rasters_finding_edges_run_as_one_window(monkeypatch):
+    # Without a tile size, a run finding edges only processes a raster of at most
+    # detectors.WHOLE_RASTER_PIXELS as one window (noise from its own cells, finest level sets traced
+    # in bands of rows on the tracing threads); a run with valleys and ridges keeps tiles.  Either
+    # way the lines are those of an explicitly tiled run.
+    from lineament import pipeline
+
+    monkeypatch.setattr(pipeline, "DEFAULT_TILE_SIZE", 128)
+    z, valid, g = _scene(n=480, seed=8)
+    edges = ExtractionSettings(scales="20,40,80", features="edges")
+    whole = extract_array(z, g, edges, valid=valid)
+    tiled = extract_array(z, g, edges, valid=valid, tile_size=128)
+    assert whole.tiles == 1 and tiled.tiles > 1
+    assert len(whole.lines) >= 3
+    _assert_same_lines(tiled, whole, atol_px=0.0)
+    dem = ExtractionSettings(scales="20,40", features="edges,valleys")
+    assert extract_array(z, g, dem, valid=valid).tiles > 1
+
+
+@pytest.mark.parametrize("parts", [2, 3, 7])
+def test_row_bands_cover_the_core_once_with_views(parts):
+    # pipeline._row_bands: the bands' cores tile the level set's core rows without gaps or overlap,
+    # each window is the band's rows plus BAND_MARGIN rows (clipped to the level set) and views it.
+    from lineament.crossings import Core
+    from lineament.detectors import LevelSet
+    from lineament.pipeline import BAND_MARGIN, _row_bands
+    from lineament.tiling import Tile
+
+    factor = 2
+    field = np.arange(300 * 50, dtype=np.float32).reshape(300, 50)
+    ls = LevelSet(field, field * 2, None, (field,), 1.0, 0.0)
+    usable = np.ones(field.shape, bool)
+    # window rows 100..700 of the raster (coarse 50..350), core rows 140..660 (coarse 70..330)
+    tile = Tile(3, Core(140, 0, 660, 100), (100, 0, 700, 100))
+    bands = _row_bands((0, 0, ls, usable, None, factor, tile), parts)
+    assert len(bands) == parts
+    covered = []
+    for si, di, band_ls, band_usable, filled, f, band_tile in bands:
+        c, w = band_tile.core, band_tile.window
+        covered.extend(range(c.row0 // f, c.row1 // f))
+        assert w[0] == max(100, c.row0 - BAND_MARGIN * f) and w[2] == min(700, c.row1 + BAND_MARGIN * f)
+        rows = slice(w[0] // f - 50, w[2] // f - 50)
+        assert np.shares_memory(band_ls.field, field) and np.array_equal(band_ls.field, field[rows])
+        assert np.array_equal(band_ls.strength, ls.strength[rows]) and band_usable.shape == band_ls.field.shape
+    assert covered == list(range(70, 330))

@@ -16,6 +16,7 @@ from ..raster_io import open_raster
 from ..resume import resume_folder
 from ..settings import FEATURES, OPERATORS, ExtractionSettings, parse_scales
 from ..survey import expand_inputs, extract_survey
+from ..detectors import WHOLE_RASTER_PIXELS
 from ..tiling import DEFAULT_TILE_SIZE
 from ..vector_io import check_output, write_lines
 from .common import CAUTION, Progress, handle_errors, run_options
@@ -89,8 +90,10 @@ def _with_option_names(message: str) -> str:
                    "4 pixels, valleys and ridges from 6). Slower; the lines move by a small fraction of a pixel.")
 @click.option("--output-crs", default=None, metavar="CRS",
               help="Write lines in this CRS (e.g. EPSG:4326). Default: the raster's CRS (GeoJSON: always WGS84).")
-@click.option("--tile-size", type=int, default=DEFAULT_TILE_SIZE, show_default=True,
-              help="Tile size in pixels; memory grows with it, results do not change.")
+@click.option("--tile-size", type=int, default=None,
+              help=f"Tile size in pixels; memory grows with it, results do not change. Default: "
+                   f"{DEFAULT_TILE_SIZE}, or the whole raster as one window when only edges are found "
+                   f"on a raster of at most {WHOLE_RASTER_PIXELS:,} pixels.")
 @click.option("--workers", type=int, default=None,
               help="Local processes running tiles in parallel. Default: one per 3 cores (each process "
                    "already uses several cores).")
@@ -137,7 +140,7 @@ def extract(inputs, output, scales, operator, features, band, min_length, simpli
             except CRSError as exc:
                 first = (str(exc).splitlines() or ["not recognised"])[0]
                 raise SettingsError(f"{option} {value!r} is not a CRS ({first})") from None
-    if tile_size < 64:
+    if tile_size is not None and tile_size < 64:
         raise SettingsError(f"--tile-size must be at least 64 pixels, got {tile_size}")
     if workers is not None and workers < 1:
         raise SettingsError(f"--workers must be at least 1, got {workers}")
