@@ -226,3 +226,33 @@ def test_centring_is_the_plain_formula(z_factor, dtype):
         assert got.dtype == np.float32
         np.testing.assert_array_equal(got, want)
         assert np.array_equal(np.signbit(got), np.signbit(want))
+
+
+@pytest.mark.parametrize("edges", [(False, False, False, False), (True, False, True, False),
+                                   (True, True, True, True), (False, True, False, True)])
+@pytest.mark.parametrize("step", [1, 2, 4])
+def test_usable_mask_without_voids_is_distance_to_raster_edges(edges, step):
+    # pipeline._usable_mask without voids: a cell is usable when farther than the margin from each
+    # raster edge among ``edges``, measured as scipy's Euclidean distance transform measures it on a
+    # grid padded with a void row or column at those edges (the path with voids, _usable).
+    from scipy import ndimage
+
+    from lineament.pipeline import _usable_mask
+
+    shape, pixel_m, margin = (37, 29), (10.0, 12.5), 40.0
+    padded = np.pad(np.ones(shape, bool), 1, constant_values=True)
+    top, bottom, left, right = edges
+    if top:
+        padded[0, :] = False
+    if bottom:
+        padded[-1, :] = False
+    if left:
+        padded[:, 0] = False
+    if right:
+        padded[:, -1] = False
+    if padded.all():
+        dist = np.full(shape, np.inf)
+    else:
+        dist = ndimage.distance_transform_edt(padded, sampling=(pixel_m[1], pixel_m[0]))[1:-1, 1:-1]
+    got = _usable_mask(None, edges, shape, pixel_m, margin, step)
+    np.testing.assert_array_equal(got, (dist > margin)[::step, ::step])
