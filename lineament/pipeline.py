@@ -30,7 +30,7 @@ import numpy as np
 from scipy import ndimage
 
 from ._version import __version__
-from ._kernels import available_cores
+from ._kernels import _bands, available_cores
 from ._order_stats import median, median_abs
 from .crossings import MAD_TO_SIGMA, ROUNDING_STD_PER_SPAN, Core, Fragment, keep_run, stitch_fragments, trace_level_set
 from .detectors import Detector, detectors_for
@@ -41,7 +41,7 @@ from .pyramid import LEVEL_BLUR_PX, Pyramid, decimation_factor, pyramid_reach
 from .raster_io import RasterData, open_raster
 from .scalespace import fill_voids
 from .settings import ExtractionSettings, Scale
-from .tiling import DEFAULT_TILE_SIZE, ArraySource, FileSource, Tile, spread_sample, tile_grid
+from .tiling import DEFAULT_TILE_SIZE, ArraySource, FileSource, Tile, spread_sample, strided_subsample, tile_grid
 from .vectorize import Lineament, pieces_to_lines
 
 #: Core size of the blocks the noise level is measured on; fixed, so that the
@@ -232,13 +232,24 @@ def _coarse_window(tile: Tile, factor: int) -> tuple[tuple[int, int], Core]:
 
 
 def _centre(values: np.ndarray, valid: np.ndarray, offset: float, z_factor: float) -> np.ndarray:
-    """``(values - offset) * z_factor`` as float32, 0 at invalid cells (one new array)."""
-    with np.errstate(invalid="ignore", over="ignore"):
-        arr = values - offset
-        if z_factor != 1.0:  # multiplying by 1 changes no value (IEEE 754), so the pass is saved
-            arr *= z_factor
-    if not valid.all():
-        arr = np.where(valid, arr, arr.dtype.type(0))
+    """``(values - offset) * z_factor`` as float32, 0 at invalid cells (one new array).
+
+    Computed in bands of rows on the kernel threads (element by element, so
+    the same numbers however the rows are split).
+    """
+    arr = np.empty(values.shape, (values.reshape(-1)[:1] - offset).dtype)
+    voids = not valid.all()
+
+    def rows(r0: int, r1: int) -> None:
+        part = arr[r0:r1]
+        with np.errstate(invalid="ignore", over="ignore"):
+            np.subtract(values[r0:r1], offset, out=part)
+            if z_factor != 1.0:  # multiplying by 1 changes no value (IEEE 754), so the pass is saved
+                part *= z_factor
+        if voids:
+            part[~valid[r0:r1]] = 0
+
+    _bands(rows, values.shape[0], values.size)
     return arr.astype(np.float32, copy=False)
 
 
@@ -409,16 +420,21 @@ def _noise_from(level_sets, core: Core, per_block: int) -> dict:
         where = ls.allowed if ls.noise_mask is None else ls.noise_mask
         if where is not None:
             ok = ok & where[sl]
-        if ok.all():  # the usual case: every cell, so a stride instead of an index (same samples)
-            step = max(1, ok.size // max(1, per_block))
-            comps = [np.asarray(x[sl]).reshape(-1)[::step] for x in ls.noise_samples]
+        comps = ls.noise_samples
+        if comps and ok.size // max(1, per_block) <= 1 and ok.all():
+            # the usual case: every cell of the block is a sample (the step below would be 1),
+            # copied once, row by row, in the order of an index over the raveled block
+            both = np.empty((len(comps),) + ok.shape, np.float32)
+            for k, x in enumerate(comps):
+                both[k] = x[sl]
+            samples = both.reshape(-1)
         else:
             idx = np.flatnonzero(ok.ravel())
             step = max(1, idx.size // max(1, per_block))
             idx = idx[::step]
-            comps = [np.asarray(x[sl]).ravel()[idx] for x in ls.noise_samples]
-        out[(si, di)] = (np.concatenate(comps).astype(np.float32, copy=False) if comps else np.zeros(0, np.float32),
-                         ls.noise_floor, ls.noise_factor)
+            parts = [np.asarray(x[sl]).ravel()[idx] for x in comps]
+            samples = np.concatenate(parts).astype(np.float32, copy=False) if parts else np.zeros(0, np.float32)
+        out[(si, di)] = (samples, ls.noise_floor, ls.noise_factor)
     return out
 
 
@@ -965,8 +981,14 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
                    for pixel_m, sc in band_scales]
     halo = tuple(max(_halo(sc, detectors, settings)[axis] for _, sc in band_scales) for axis in (0, 1))
 
-    # global centring offset and value range, from a tile-independent overview
-    ov_values, ov_valid = source.overview(OVERVIEW_PIXELS)
+    # global centring offset and value range, from a tile-independent overview; a raster that is
+    # one window is read whole once, and its overview taken from that (the same cells)
+    whole = None
+    if len(bands) == 1 and georef.height <= tile_size and georef.width <= tile_size:
+        whole = source.read((0, 0, georef.height, georef.width))
+        ov_values, ov_valid = strided_subsample(*whole, OVERVIEW_PIXELS)
+    else:
+        ov_values, ov_valid = source.overview(OVERVIEW_PIXELS)
     if not ov_valid.any():
         raise InputError(f"{name}: no valid cells (everything is nodata, NaN or infinite)")
     inside = ov_values[ov_valid]
@@ -1005,7 +1027,9 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
             # level from the noise blocks' cores inside this window (the same cells and values a
             # separate pass would see), then is traced at once, so only one level set is held.
             tile = tiles[0]
-            values, valid = source.read(tile.window)
+            assert whole is not None and tile.window == (0, 0, georef.height, georef.width)
+            values, valid = whole
+            del whole
             plan = RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset, rounding_std,
                            {}, search, margin)
             def set_thresholds(item) -> None:

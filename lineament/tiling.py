@@ -114,6 +114,17 @@ STRIP_PIXELS = 4_000_000
 OVERVIEW_THREADS = 2
 
 
+def overview_step(height: int, width: int, max_pixels: int) -> int:
+    """Row and column step of an overview of at most about ``max_pixels`` cells."""
+    return max(1, int(math.ceil(math.sqrt(height * width / max_pixels))))
+
+
+def strided_subsample(values: np.ndarray, valid: np.ndarray, max_pixels: int) -> tuple[np.ndarray, np.ndarray]:
+    """The overview of a raster already read whole: the cells :func:`strided_overview` reads."""
+    step = overview_step(values.shape[0], values.shape[1], max_pixels)
+    return values[::step, ::step], valid[::step, ::step]
+
+
 def strided_overview(read, georef: GeoRef, max_pixels: int, *,
                      threads: int = OVERVIEW_THREADS) -> tuple[np.ndarray, np.ndarray]:
     """Every k-th row and column of a raster (at most about ``max_pixels`` cells).
@@ -123,7 +134,7 @@ def strided_overview(read, georef: GeoRef, max_pixels: int, *,
     must be safe to call from several threads at once (each call opening
     its own dataset, as :func:`~lineament.raster_io.read_window` does).
     """
-    step = max(1, int(math.ceil(math.sqrt(georef.height * georef.width / max_pixels))))
+    step = overview_step(georef.height, georef.width, max_pixels)
     strip = max(step, (STRIP_PIXELS // max(1, georef.width) // step) * step)
 
     def one(r0: int) -> tuple[np.ndarray, np.ndarray]:
@@ -161,8 +172,7 @@ class ArraySource:
 
     def overview(self, max_pixels: int) -> tuple[np.ndarray, np.ndarray]:
         """Values and validity on a regular subsample of at most about ``max_pixels`` cells."""
-        step = max(1, int(math.ceil(math.sqrt(self.values.size / max_pixels))))
-        return self.values[::step, ::step], self.valid[::step, ::step]
+        return strided_subsample(self.values, self.valid, max_pixels)
 
 
 @dataclass(frozen=True)

@@ -256,3 +256,20 @@ def test_usable_mask_without_voids_is_distance_to_raster_edges(edges, step):
         dist = ndimage.distance_transform_edt(padded, sampling=(pixel_m[1], pixel_m[0]))[1:-1, 1:-1]
     got = _usable_mask(None, edges, shape, pixel_m, margin, step)
     np.testing.assert_array_equal(got, (dist > margin)[::step, ::step])
+
+
+@pytest.mark.parametrize("threads", ["1", "3"])
+def test_centring_in_bands_of_rows_is_the_plain_formula(monkeypatch, threads):
+    # Large windows are centred in bands of rows on the kernel threads; the numbers must be those of
+    # the one-array formula for any split.
+    from lineament.pipeline import _centre
+
+    monkeypatch.setenv("LINEAMENT_THREADS", threads)
+    rng = np.random.default_rng(5)
+    values = (rng.normal(size=(701, 409)) * 300 + 1200).astype(np.float32)
+    valid = rng.random(values.shape) > 0.01
+    values[~valid] = np.nan
+    for z in (1.0, 0.3048):
+        with np.errstate(invalid="ignore"):
+            want = np.where(valid, (values - 1234.5) * z, 0).astype(np.float32)
+        np.testing.assert_array_equal(_centre(values, valid, 1234.5, z), want)

@@ -407,6 +407,16 @@ def test_strided_overview_reads_strips_in_threads_in_order(tmp_path, monkeypatch
         ref = ds.read(1, masked=True)
     np.testing.assert_array_equal(valid, ~np.ma.getmaskarray(ref)[::3, ::3])
     np.testing.assert_array_equal(values[valid], ref.data[::3, ::3][valid])
+    # a raster processed as one window takes its overview from its whole read: the same cells
+    whole_values, whole_valid = tiling.strided_subsample(*source.read((0, 0, 301, 207)), 301 * 207 // 9)
+    np.testing.assert_array_equal(whole_valid, valid)
+    np.testing.assert_array_equal(whole_values[valid], values[valid])
+    array = tiling.ArraySource(ref.data, ~np.ma.getmaskarray(ref), source.georef, "array")
+    for n in (301 * 207, 301 * 207 // 9, 1000):
+        a_values, a_valid = array.overview(n)
+        f_values, f_valid = tiling.strided_overview(source.read, source.georef, n, threads=threads)
+        np.testing.assert_array_equal(a_valid, f_valid)
+        np.testing.assert_array_equal(a_values[a_valid], f_values[f_valid])
 
 
 def test_small_rasters_finding_edges_run_as_one_window(monkeypatch):
