@@ -253,6 +253,20 @@ def _centre(values: np.ndarray, valid: np.ndarray, offset: float, z_factor: floa
     return arr.astype(np.float32, copy=False)
 
 
+def _span(values: np.ndarray, offset: float, z_factor: float) -> float:
+    """``max(|(values - offset) * z_factor|)`` as NumPy computes it, from the two extreme values.
+
+    Rounding is monotonic, so the largest and smallest rounded differences
+    come from the largest and smallest values, and the largest magnitude is
+    one of them (multiplying by ``z_factor``, of either sign, keeps the order
+    of magnitudes).
+    """
+    lo, hi = values.min(), values.max()
+    with np.errstate(invalid="ignore", over="ignore"):
+        ends = (np.asarray([lo, hi]) - offset) * z_factor
+    return float(np.max(np.abs(ends)))
+
+
 def _usable(valid: np.ndarray, edges: tuple[bool, bool, bool, bool], pixel_m: tuple[float, float]) -> np.ndarray | None:
     """Distance in metres from each cell to the nearest void or raster edge (None: nothing near).
 
@@ -991,10 +1005,9 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
         ov_values, ov_valid = source.overview(OVERVIEW_PIXELS)
     if not ov_valid.any():
         raise InputError(f"{name}: no valid cells (everything is nodata, NaN or infinite)")
-    inside = ov_values[ov_valid]
+    inside = ov_values.ravel() if ov_valid.all() else ov_values[ov_valid]
     offset = median(inside) if inside.dtype == np.float32 else float(np.median(inside))
-    with np.errstate(invalid="ignore", over="ignore"):
-        span = float(np.max(np.abs((inside - offset) * settings.z_factor)))
+    span = _span(inside, offset, settings.z_factor)
     if not math.isfinite(span) or span > float(np.finfo(np.float32).max) / 16:
         raise InputError(f"{name}: values overflow float32 after centring and the z factor")
     rounding_std = ROUNDING_STD_PER_SPAN * span

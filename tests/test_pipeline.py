@@ -273,3 +273,19 @@ def test_centring_in_bands_of_rows_is_the_plain_formula(monkeypatch, threads):
         with np.errstate(invalid="ignore"):
             want = np.where(valid, (values - 1234.5) * z, 0).astype(np.float32)
         np.testing.assert_array_equal(_centre(values, valid, 1234.5, z), want)
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+@pytest.mark.parametrize("z_factor", [1.0, 0.3048, -2.5, 1e30])
+def test_span_from_extremes_is_numpys(dtype, z_factor):
+    # pipeline._span takes the largest magnitude of (values - offset) * z from the two extreme
+    # values; it must equal numpy's whole-array expression (overflow to inf included).
+    from lineament.pipeline import _span
+
+    rng = np.random.default_rng(11)
+    for offset in (0.0, 1234.567, -1e20):
+        values = (rng.normal(size=5001) * rng.uniform(1, 1e6)).astype(dtype)
+        with np.errstate(invalid="ignore", over="ignore"):
+            want = float(np.max(np.abs((values - offset) * z_factor)))
+        got = _span(values, offset, z_factor)
+        assert got == want or (np.isinf(got) and np.isinf(want))
