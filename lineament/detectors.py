@@ -44,10 +44,11 @@ class LevelSet:
         Strength per pixel, raster units.
     allowed : ndarray of bool or None
         Where lines may lie (None: everywhere).
-    noise_samples : tuple of ndarray
-        Arrays (same shape as ``field``) whose pooled robust standard
-        deviation, times ``noise_factor``, is the background noise level in
-        strength units.
+    noise_samples : tuple
+        Arrays (same shape as ``field``; or objects giving such an array's
+        part for a pair of slices) whose pooled robust standard deviation,
+        times ``noise_factor``, is the background noise level in strength
+        units.
     noise_factor : float
     noise_floor : float
         Lowest noise level the arithmetic allows (float32 rounding), strength units.
@@ -108,6 +109,36 @@ class Detector:
 WHOLE_RASTER_PIXELS = 1 << 24
 
 
+class _GradientPart:
+    """One gradient component of a response (as :func:`strength_map` gives it), computed where asked.
+
+    ``part[rows, cols]`` (two slices with bounds) is the same array, bit for
+    bit, as ``strength_map(response, ...)[1 + axis][rows, cols]``: the 5-point
+    differences reach two cells, so the part is computed on the response two
+    cells wider on each side, whose own border (cells repeated) then only
+    matters where the response itself ends.  Edge detectors hand these to
+    the noise sampling instead of two whole component arrays: samples come
+    from blocks that cover a small share of a large window.
+    """
+
+    def __init__(self, response: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float], axis: int):
+        self.response, self.sigma_m, self.pixel_size_m, self.axis = response, sigma_m, pixel_size_m, axis
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        return self.response.shape
+
+    def __getitem__(self, index: tuple[slice, slice]) -> np.ndarray:
+        rows, cols = index
+        h, w = self.response.shape
+        r0, r1, _ = rows.indices(h)
+        c0, c1, _ = cols.indices(w)
+        a0, a1, b0, b1 = max(0, r0 - 2), min(h, r1 + 2), max(0, c0 - 2), min(w, c1 + 2)
+        _, gx, gy = strength_map(self.response[a0:a1, b0:b1], self.sigma_m, self.pixel_size_m)
+        g = gx if self.axis == 0 else gy
+        return g[r0 - a0:r1 - a0, c0 - b0:c1 - b0]
+
+
 def _edge_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float, float], *,
                     truncate: float, rounding_std: float, operator: str, prior_blur_px: float = 0.0,
                     noise: bool = True) -> LevelSet:
@@ -121,11 +152,11 @@ def _edge_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float
                                         ratio=DOG_RATIO, truncate=truncate, prior_blur_px=prior_blur_px)
         response_scale = 2.0 / (DOG_RATIO - 1.0 / DOG_RATIO)
     if operator == "log":  # one sweep for the response and its strength (the same numbers)
-        resp, strength, gx, gy = log_strength_map(image, sigma_m, pixel_size_m, truncate=truncate,
-                                                  prior_blur_px=prior_blur_px, components=noise)
+        resp, strength, _, _ = log_strength_map(image, sigma_m, pixel_size_m, truncate=truncate,
+                                                prior_blur_px=prior_blur_px, components=False)
     else:
         resp = response_of(image)
-        strength, gx, gy = strength_map(resp, sigma_m, pixel_size_m, components=noise)
+        strength, _, _ = strength_map(resp, sigma_m, pixel_size_m, components=False)
     factor = step_strength_factor(sigma_m)
     # Floors: input rounding through the filter and the float32 sums (crossings.rounding_floor),
     # and rounding of the response itself (the DoG subtracts two nearly equal blurred images)
@@ -134,7 +165,8 @@ def _edge_level_set(image: np.ndarray, sigma_m: float, pixel_size_m: tuple[float
                               pixel_size_m, truncate=truncate, rounding_std=rounding_std,
                               key=("edge", operator, float(prior_blur_px)))
     floor_out = rounding_std * response_scale * math.sqrt(130.0) / 12.0 / min(pixel_size_m)
-    return LevelSet(resp, strength, None, (gx, gy) if noise else (), factor, max(floor_in, floor_out) * factor)
+    noise_samples = (_GradientPart(resp, sigma_m, pixel_size_m, 0), _GradientPart(resp, sigma_m, pixel_size_m, 1))
+    return LevelSet(resp, strength, None, noise_samples if noise else (), factor, max(floor_in, floor_out) * factor)
 
 
 # --------------------------------------------------------------------------- Gaussian derivative stack

@@ -1046,7 +1046,8 @@ def run_extraction(source, settings: ExtractionSettings | None = None, *, tile_s
             plan = RunPlan(georef, pixel_m, settings, tuple(scales), tuple(detectors), halo, offset, rounding_std,
                            {}, search, margin)
             def set_thresholds(item) -> None:
-                samples = [_noise_from([item], b.core, per_block) for b in blocks]
+                # the blocks' samples are copies of parts of the level set: two at a time on threads
+                samples = list(_noise_lanes().map(lambda b: _noise_from([item], b.core, per_block), blocks))
                 plan.thresholds[item[:2]] = _noise_thresholds(settings, samples, item[:2])
 
             out = _trace_from(plan, _window_level_sets(plan, tile, values, valid), before=set_thresholds,

@@ -197,3 +197,21 @@ def test_rounding_floors_are_remembered_by_everything_they_depend_on():
     warm = floors(combos[::-1])
     assert warm == cold
     assert len(set(cold.values())) == len(cold)  # every scalar matters
+
+
+def test_gradient_parts_equal_the_whole_component_arrays():
+    # detectors._GradientPart computes a gradient component of the response only on the part asked
+    # for; every part, at the window's edges or inside it, must be that part of the whole array
+    # strength_map gives (bit for bit).
+    from lineament.crossings import strength_map
+    from lineament.detectors import _GradientPart
+
+    rng = np.random.default_rng(9)
+    response = rng.normal(size=(157, 203)).astype(np.float32).cumsum(axis=0)
+    _, gx, gy = strength_map(response, 20.0, (10.0, 12.5))
+    parts = (_GradientPart(response, 20.0, (10.0, 12.5), 0), _GradientPart(response, 20.0, (10.0, 12.5), 1))
+    for rows in (slice(0, 157), slice(0, 1), slice(1, 40), slice(60, 157), slice(155, 157), slice(70, 71)):
+        for cols in (slice(0, 203), slice(0, 3), slice(2, 90), slice(100, 203), slice(201, 203)):
+            np.testing.assert_array_equal(parts[0][rows, cols], gx[rows, cols])
+            np.testing.assert_array_equal(parts[1][rows, cols], gy[rows, cols])
+    assert parts[0].shape == response.shape
