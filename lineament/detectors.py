@@ -104,8 +104,9 @@ class Detector:
 #: samples come from the same cells of the filtered window) and no halos, which for the cheap edge
 #: filters are a large share of the work: on our 2-core benchmark raster (4096 x 4096 = 2**24
 #: pixels, four scales) 0.47 to 0.49 s against 0.63 to 0.71 s in 2048 px tiles, at a peak of
-#: 870 against 630 MB.  Valley and ridge filters hold several whole-window arrays each (1.8 GB
-#: for the same raster) and were slower as one window (4.7 against 3.3 s), so they keep tiles.
+#: 684 to 702 against 614 to 636 MB through the command line.  Valley and ridge filters hold
+#: several whole-window arrays each (1.8 GB for the same raster) and were slower as one window
+#: (4.7 against 3.3 s), so they keep tiles.
 WHOLE_RASTER_PIXELS = 1 << 24
 
 
