@@ -38,32 +38,38 @@ def _order_key(b, signed):  # pragma: no cover - compiled
     return b ^ (0x80000000 | ((b >> 31) * 0x7FFFFFFF))
 
 
+@numba.njit(cache=True, nogil=True, inline="always")
+def _upper_counts(bits, signed):  # pragma: no cover - compiled
+    """Counts of the order keys' upper 16 bits (the first pass of a selection)."""
+    hist = np.zeros(65536, np.int64)
+    for i in range(bits.size):
+        hist[_order_key(np.int64(bits[i]), signed) >> 16] += 1
+    return hist
+
+
+@numba.njit(cache=True, nogil=True, inline="always")
+def _bucket(hist, k):  # pragma: no cover - compiled
+    """The bucket holding the k-th smallest (0-based) of counted keys, and its rank within the bucket."""
+    below = 0
+    for b in range(65536):
+        if below + hist[b] > k:
+            return b, k - below
+        below += hist[b]
+    return 0, 0  # not reached for 0 <= k < count
+
+
 @numba.njit(cache=True, nogil=True)
 def _kth_key(bits, k, signed):  # pragma: no cover - compiled
     """Order key of the k-th smallest (0-based) value (or magnitude) of float32 values given as uint32 bits."""
-    n = bits.size
-    hist = np.zeros(65536, np.int64)
-    for i in range(n):
-        hist[_order_key(np.int64(bits[i]), signed) >> 16] += 1
-    below = 0
-    top = 0
-    for b in range(65536):
-        if below + hist[b] > k:
-            top = b
-            break
-        below += hist[b]
-    rank = k - below
+    hist = _upper_counts(bits, signed)
+    top, rank = _bucket(hist, k)
     hist[:] = 0
-    for i in range(n):
+    for i in range(bits.size):
         v = _order_key(np.int64(bits[i]), signed)
         if (v >> 16) == top:
             hist[v & 0xFFFF] += 1
-    below = 0
-    for b in range(65536):
-        if below + hist[b] > rank:
-            return (top << 16) | b
-        below += hist[b]
-    return 0  # not reached for 0 <= k < n
+    low, _ = _bucket(hist, rank)
+    return (top << 16) | low
 
 
 @numba.njit(cache=True, nogil=True)
@@ -73,18 +79,8 @@ def _two_keys(bits, k, signed):  # pragma: no cover - compiled
     The (k+1)-th lies in the k-th's bucket of the upper 16 bits or, when
     that bucket holds no more, is the smallest key of the next non-empty one.
     """
-    n = bits.size
-    hist = np.zeros(65536, np.int64)
-    for i in range(n):
-        hist[_order_key(np.int64(bits[i]), signed) >> 16] += 1
-    below = 0
-    top = 0
-    for b in range(65536):
-        if below + hist[b] > k:
-            top = b
-            break
-        below += hist[b]
-    rank = k - below
+    hist = _upper_counts(bits, signed)
+    top, rank = _bucket(hist, k)
     nxt = top
     if rank + 1 >= hist[top]:  # the (k+1)-th is in the next non-empty bucket
         nxt = top + 1
@@ -92,31 +88,21 @@ def _two_keys(bits, k, signed):  # pragma: no cover - compiled
             nxt += 1
     hist[:] = 0
     least_next = np.int64(0xFFFFFFFF)
-    for i in range(n):
+    for i in range(bits.size):
         v = _order_key(np.int64(bits[i]), signed)
         u = v >> 16
         if u == top:
             hist[v & 0xFFFF] += 1
         elif u == nxt and v < least_next:
             least_next = v
-    below = 0
-    first = 0
-    second = -1
-    for b in range(65536):
-        if below + hist[b] > rank:
-            first = (top << 16) | b
-            if below + hist[b] > rank + 1:
-                second = first
-            else:
-                for b2 in range(b + 1, 65536):
-                    if hist[b2] > 0:
-                        second = (top << 16) | b2
-                        break
-            break
-        below += hist[b]
-    if second < 0:
-        second = least_next
-    return first, second
+    low, within = _bucket(hist, rank)
+    first = (top << 16) | low
+    if within + 1 < hist[low]:  # a tie: the next element has the same key
+        return first, first
+    for b in range(low + 1, 65536):
+        if hist[b] > 0:
+            return first, (top << 16) | b
+    return first, least_next
 
 
 def _value_of_key(key: int, signed: bool) -> float:
