@@ -237,7 +237,7 @@ def _centre(values: np.ndarray, valid: np.ndarray, offset: float, z_factor: floa
     Computed in bands of rows on the kernel threads (element by element, so
     the same numbers however the rows are split).
     """
-    arr = np.empty(values.shape, (values.reshape(-1)[:1] - offset).dtype)
+    arr = np.empty(values.shape, (values[:1, :1] - offset).dtype)  # the dtype numpy gives (no copy)
     voids = not valid.all()
 
     def rows(r0: int, r1: int) -> None:

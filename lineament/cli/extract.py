@@ -10,13 +10,13 @@ import click
 from pyproj import CRS
 from pyproj.exceptions import CRSError
 
+from ..detectors import WHOLE_RASTER_PIXELS
 from ..errors import InputError, OutputError, SettingsError
 from ..pipeline import default_workers
 from ..raster_io import open_raster
 from ..resume import resume_folder
 from ..settings import FEATURES, OPERATORS, ExtractionSettings, parse_scales
 from ..survey import expand_inputs, extract_survey
-from ..detectors import WHOLE_RASTER_PIXELS
 from ..tiling import DEFAULT_TILE_SIZE
 from ..vector_io import check_output, write_lines
 from .common import CAUTION, Progress, handle_errors, run_options
