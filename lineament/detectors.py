@@ -104,9 +104,11 @@ class Detector:
 #: samples come from the same cells of the filtered window) and no halos, which for the cheap edge
 #: filters are a large share of the work: on our 2-core benchmark raster (4096 x 4096 = 2**24
 #: pixels, four scales) 0.47 to 0.49 s against 0.63 to 0.71 s in 2048 px tiles, at a peak of
-#: 684 to 702 against 614 to 636 MB through the command line.  Valley and ridge filters hold
-#: several whole-window arrays each (1.8 GB for the same raster) and were slower as one window
-#: (4.7 against 3.3 s), so they keep tiles.
+#: 684 to 702 against 614 to 636 MB through the command line; with the DoG 0.97 to 1.04 against
+#: 1.02 to 1.21 s (743 against 650 MB in-process).  The gradient edge detector, and the valley and
+#: ridge filters, hold several whole-window arrays each and were no faster or slower as one window
+#: (gradient edges 4.2 against 4.3 s at 1.7 GB against 0.75 GB; the DEM default 4.7 against 3.3 s
+#: at 1.8 GB), so they keep tiles.
 WHOLE_RASTER_PIXELS = 1 << 24
 
 
@@ -471,8 +473,7 @@ DETECTORS: dict[str, dict[str, Detector]] = {
         "dog": Detector("edge", "dog", math.sqrt(DOG_RATIO),
                         functools.partial(_edge_level_set, operator="dog"), MIN_EDGE_SIGMA_CELLS,
                         WHOLE_RASTER_PIXELS),
-        "gradient": Detector("edge", "gradient", 1.0, _gradient_level_set, MIN_EDGE_SIGMA_CELLS,
-                             WHOLE_RASTER_PIXELS),
+        "gradient": Detector("edge", "gradient", 1.0, _gradient_level_set, MIN_EDGE_SIGMA_CELLS),
     },
     "valleys": {
         "hessian": Detector("valley", "hessian", 2.0, functools.partial(_curvature_level_set, sign=1)),
