@@ -92,8 +92,8 @@ def _with_option_names(message: str) -> str:
               help="Write lines in this CRS (e.g. EPSG:4326). Default: the raster's CRS (GeoJSON: always WGS84).")
 @click.option("--tile-size", type=int, default=None,
               help=f"Tile size in pixels; memory grows with it, results do not change. Default: "
-                   f"{DEFAULT_TILE_SIZE}, or the whole raster as one window when only edges are found "
-                   f"on a raster of at most {WHOLE_RASTER_PIXELS:,} pixels.")
+                   f"{DEFAULT_TILE_SIZE}, or the whole raster as one window when only LoG or DoG edges "
+                   f"are found on a raster of at most {WHOLE_RASTER_PIXELS:,} pixels.")
 @click.option("--workers", type=int, default=None,
               help="Local processes running tiles in parallel. Default: one per 3 cores (each process "
                    "already uses several cores).")
